@@ -1,0 +1,103 @@
+"""``audition response``: the figures and picture of one filter design."""
+
+from __future__ import annotations
+
+import json
+
+from audition.cli.filteropts import add_filter_options
+
+HELP = "show a filter design: digital sections, deviation from the analog response, figures"
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser("response", help=HELP, description=HELP.capitalize() + ".")
+    add_filter_options(p)
+    p.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
+    p.add_argument("--plot", metavar="FILE.png", help="draw magnitude and phase, analog against digital")
+    p.set_defaults(run=run)
+
+
+def report(d) -> dict:
+    """The JSON object of a design: its sections and figures, and every method's deviation."""
+    from audition.design import METHODS
+
+    fig = d.figures()
+    out = {
+        "rate": d.rate_hz,
+        "method": d.method,
+        "f0_hz": d.f0_hz,
+        "q": d.q,
+        "order": d.order,
+        "alignment": d.alignment,
+        "highpass_hz": d.highpass_hz,
+        "gain_db": d.passband_gain_db,
+        "analog_sections": d.to_dict()["analog_sections"],
+        "sections": d.to_dict()["sections"],
+        "max_deviation_db": fig.max_deviation_db,
+        "max_deviation_hz": fig.max_deviation_hz,
+        "deviation_band_hz": list(fig.deviation_band_hz),
+        "minus3db_hz": fig.minus3db_hz,
+        "peak_gain_db": fig.peak_gain_db,
+        "peak_hz": fig.peak_hz,
+        "overshoot_pct": fig.overshoot_pct,
+        "group_delay_ms": {"1000": fig.group_delay_ms_1k, "f0": fig.group_delay_ms_f0},
+        "methods": {},
+    }
+    for m in METHODS:
+        dev_db, dev_hz = (fig.max_deviation_db, fig.max_deviation_hz) if m == d.method else d.with_method(m).max_deviation()
+        out["methods"][m] = {"max_deviation_db": dev_db, "max_deviation_hz": dev_hz}
+    return out
+
+
+def format_table(r: dict) -> str:
+    def hz(v):
+        return "—" if v is None else f"{v:,.1f} Hz"
+
+    what = f"order {r['order']}" + (f" {r['alignment']}" if r["alignment"] else f", Q {r['q']:.4g}" if r["q"] else "")
+    lines = [
+        f"low-pass f0 {r['f0_hz']:,.1f} Hz, {what}, H0 {r['gain_db']:+.2f} dB"
+        + (f", rumble high-pass {r['highpass_hz']:,.1f} Hz" if r["highpass_hz"] else ""),
+        f"digitised at {r['rate']:,.0f} Hz by the {r['method']} method, {len(r['sections'])} section(s):",
+    ]
+    for i, (a, s) in enumerate(zip(r["analog_sections"], r["sections"]), 1):
+        q = "first order" if a["q"] is None else f"Q {a['q']:.4f}"
+        lines.append(f"  {i}. {a['kind']:<8} f0 {a['f0_hz']:>10,.1f} Hz  {q:<11}  "
+                     f"b = [{', '.join(f'{x:+.10f}' for x in s['b'])}]  a = [{', '.join(f'{x:+.10f}' for x in s['a'])}]")
+    lo, hi = r["deviation_band_hz"]
+    lines += [
+        "",
+        f"  {'-3.01 dB (half power)':<28}{hz(r['minus3db_hz'])}",
+        f"  {'peak gain':<28}{r['peak_gain_db']:+.2f} dB at {hz(r['peak_hz'])}",
+        f"  {'step overshoot':<28}" + ("—" if r["overshoot_pct"] is None else f"{r['overshoot_pct']:.2f} %"),
+        f"  {'group delay at 1 kHz':<28}{r['group_delay_ms']['1000']:.4f} ms",
+        f"  {'group delay at f0':<28}{r['group_delay_ms']['f0']:.4f} ms",
+        f"  digital minus analog magnitude, worst point in {lo:,.0f} Hz .. {hi:,.0f} Hz:",
+    ]
+    for m, v in r["methods"].items():
+        mark = "  (this design)" if m == r["method"] else ""
+        lines.append(f"    {m:<10}{v['max_deviation_db']:+8.3f} dB at {hz(v['max_deviation_hz'])}{mark}")
+    return "\n".join(lines)
+
+
+def run(args) -> int:
+    from audition.cli.filteropts import design_from_args
+    from audition.design import check_rate
+    from audition.errors import BadParameter
+
+    check_rate(args.rate)
+    d = design_from_args(args, args.rate)
+    if d is None:
+        raise BadParameter("give a filter: --f0 HZ [--q Q | --order N --alignment NAME] or --section F0:Q ...")
+    r = report(d)
+    if args.plot:
+        from audition.plots.response import plot_response
+
+        plot_response(d, args.plot)
+    if args.json:
+        print(json.dumps(r, indent=2))
+    else:
+        print(format_table(r))
+        if args.plot:
+            print(f"plot written to {args.plot}")
+    return 0

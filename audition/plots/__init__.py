@@ -1,0 +1,41 @@
+"""Pictures of designs, spectra and results: the only place that imports matplotlib.
+
+matplotlib is imported lazily with the Agg backend, so no window system is needed
+and commands that draw nothing pay nothing for it.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+
+from audition.errors import OutputRefused
+
+
+def pyplot():
+    """matplotlib.pyplot on the Agg backend."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def save_figure(fig, path: str | os.PathLike, dpi: int = 120) -> None:
+    """Write ``fig`` as PNG atomically: a temporary file in the target folder, then rename."""
+    path = os.fspath(path)
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder):
+        raise OutputRefused(f"{path}: folder {folder!r} does not exist")
+    fd, tmp = tempfile.mkstemp(prefix=".audition-", suffix=".png.tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fig.savefig(fh, format="png", dpi=dpi)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+    finally:
+        pyplot().close(fig)
