@@ -1,0 +1,256 @@
+"""Choose a hiss filter from the surveyed spectra: candidate search, trade-off and the choice.
+
+Every candidate's prediction comes from the surveyed programme and noise spectra
+(:mod:`audition.measure`), never from filtering the audio again, so planning costs
+little more than surveying. The search is vectorised: the power response |H(f)|²
+of every candidate on the survey's frequency grid forms one matrix, and the weighted
+programme, noise and treble powers are three matrix-vector products.
+
+The choice: the candidate with the highest weighted SNR gain whose treble loss stays
+within the budget. Ties (gains within 0.05 dB) go to the gentler filter (higher f0,
+lower order), because a technician would rather keep what cannot be put back.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from audition.errors import BadParameter
+
+DEFAULT_BUDGET_DB = 1.0
+DEFAULT_WEIGHTING = "itu468"
+DEFAULT_ORDERS = (2, 4)
+#: Second-order Qs searched: from well damped through Bessel (0.5774) and Butterworth
+#: (0.7071) to a mild presence peak. Above about 1.2 the peak itself colours the
+#: programme more than any hiss saving is worth (engineering judgement).
+SECOND_ORDER_QS = (0.5, 1 / math.sqrt(3), 0.65, 1 / math.sqrt(2), 0.8, 0.9, 1.0, 1.2)
+#: Alignments searched for orders above two.
+HIGHER_ALIGNMENTS = ("butterworth", "bessel", "linkwitz-riley")
+#: Points per octave of the f0 grid (1/24 octave: finer than anyone can hear a cutoff move).
+F0_POINTS_PER_OCTAVE = 24
+F0_LOW_HZ = 1000.0
+TIE_DB = 0.05
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One design and what it is predicted to do."""
+
+    design: object
+    snr_gain_db: dict
+    treble_loss_db: float
+
+    @property
+    def label(self) -> str:
+        d = self.design
+        if d.alignment:
+            return f"{d.f0_hz:,.0f} Hz, order {d.order} {d.alignment}"
+        return f"{d.f0_hz:,.0f} Hz, order {d.order}, Q {d.q:.3f}"
+
+    def to_dict(self) -> dict:
+        d = self.design
+        return {
+            "f0_hz": d.f0_hz,
+            "q": d.q,
+            "order": d.order,
+            "alignment": d.alignment,
+            "method": d.method,
+            "sections": d.to_dict()["sections"],
+            "analog_sections": d.to_dict()["analog_sections"],
+            "predicted": {"snr_gain_db": dict(self.snr_gain_db), "treble_loss_db": self.treble_loss_db},
+        }
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The outcome of a search: the choice, the trade-off and what to be careful of."""
+
+    choice: Candidate | None
+    front: tuple[Candidate, ...]
+    alternatives: tuple[Candidate, ...]
+    budget_db: float
+    weighting: str
+    explanation: str
+    warnings: tuple[str, ...]
+    searched: int
+    all_gain_db: np.ndarray = field(repr=False, compare=False)
+    all_loss_db: np.ndarray = field(repr=False, compare=False)
+
+    def to_dict(self) -> dict:
+        return {
+            "choice": None if self.choice is None else self.choice.to_dict(),
+            "budget_db": self.budget_db,
+            "weighting": self.weighting,
+            "explanation": self.explanation,
+            "candidates": [c.to_dict() for c in self.front],
+            "alternatives": [c.to_dict() for c in self.alternatives],
+            "searched": self.searched,
+            "warnings": list(self.warnings),
+        }
+
+
+def f0_grid(rate_hz: float, low_hz: float = F0_LOW_HZ, points_per_octave: int = F0_POINTS_PER_OCTAVE) -> np.ndarray:
+    """Logarithmic f0 grid from ``low_hz`` up to just below Nyquist (0.95 × rate/2)."""
+    top = 0.95 * rate_hz / 2.0
+    n = int(math.floor(math.log2(top / low_hz) * points_per_octave)) + 1
+    return low_hz * 2.0 ** (np.arange(n) / points_per_octave)
+
+
+def candidate_designs(rate_hz: float, orders=DEFAULT_ORDERS, method: str = "bilinear", f0s=None,
+                      highpass_hz: float | None = None):
+    """Every design on the search grid: (f0 × Q) for order 2, (f0 × alignment) above."""
+    from audition import design
+
+    f0s = f0_grid(rate_hz) if f0s is None else np.asarray(f0s, dtype=float)
+    out = []
+    for order in orders:
+        if order < 1 or order > 8:
+            raise BadParameter(f"orders: {order!r} is outside 1..8")
+        for f0 in f0s:
+            if order == 2:
+                specs = [dict(q=q) for q in SECOND_ORDER_QS]
+            elif order == 1:
+                specs = [dict(order=1)]
+            else:
+                specs = [dict(order=order, alignment=a) for a in HIGHER_ALIGNMENTS
+                         if not (a == "linkwitz-riley" and order % 2)]
+            for spec in specs:
+                try:
+                    out.append(design.lowpass(float(f0), rate_hz, method=method, highpass_hz=highpass_hz, **spec))
+                except BadParameter:
+                    continue  # e.g. a Bessel section pushed above Nyquist at the top of the grid
+    return out
+
+
+def evaluate(designs, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz):
+    """Weighted SNR gain (dict of arrays) and treble loss (array) of every design, in one go."""
+    from audition.measure import gains_and_losses
+
+    freqs_hz = np.asarray(freqs_hz, dtype=float)
+    h2 = np.empty((len(designs), freqs_hz.size))
+    for i, d in enumerate(designs):
+        h2[i] = np.abs(d.digital_response(freqs_hz)) ** 2
+    return gains_and_losses(h2, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz)
+
+
+def pareto_front(gain: np.ndarray, loss: np.ndarray) -> np.ndarray:
+    """Indices of the candidates no other beats on both counts (more gain and less loss), by loss."""
+    order = np.lexsort((-gain, loss))
+    front, best = [], -np.inf
+    for i in order:
+        if gain[i] > best + 1e-9:
+            front.append(i)
+            best = gain[i]
+    return np.array(front, dtype=int)
+
+
+def choose(designs, gains: dict, loss: np.ndarray, weighting: str, budget_db: float) -> int | None:
+    """Index of the best candidate within the budget; None if none fits."""
+    g = gains[weighting]
+    ok = np.nonzero((loss <= budget_db) & np.isfinite(g))[0]
+    if ok.size == 0:
+        return None
+    best = float(np.max(g[ok]))
+    near = [i for i in ok if g[i] >= best - TIE_DB]
+    # Among near-ties: the gentlest (highest f0, then lowest order).
+    return max(near, key=lambda i: (designs[i].f0_hz, -designs[i].order, -loss[i]))
+
+
+def plan(freqs_hz, programme_psd, noise_psd, rate_hz: float, *, budget_db: float = DEFAULT_BUDGET_DB,
+         weighting: str = DEFAULT_WEIGHTING, orders=DEFAULT_ORDERS, method: str = "bilinear",
+         treble_from_hz: float = 2000.0, crossover_hz: float | None = None, highpass_hz: float | None = None,
+         extra_warnings=()) -> Plan:
+    """Search the candidates and choose one.
+
+    Parameters
+    ----------
+    freqs_hz, programme_psd, noise_psd : ndarray
+        The survey's uniformly spaced frequencies and PSDs (full-scale²/Hz).
+    rate_hz : float
+        The file's sample rate.
+    budget_db : float
+        Largest treble loss allowed, dB (positive).
+    weighting : {"flat", "a", "itu468"}
+        The weighting whose SNR gain is maximised.
+    orders : sequence of int
+    crossover_hz : float, optional
+        Where the programme meets the floor (from the survey), for the explanation.
+    """
+    from audition.weighting import WEIGHTINGS, check_name
+
+    check_name(weighting)
+    if not (budget_db > 0 and math.isfinite(budget_db)):
+        raise BadParameter(f"budget-db={budget_db!r}: the treble-loss budget must be a positive number of dB")
+    freqs_hz = np.asarray(freqs_hz, dtype=float)
+    programme_psd = np.asarray(programme_psd, dtype=float)
+    noise_psd = np.asarray(noise_psd, dtype=float)
+    designs = candidate_designs(rate_hz, orders, method, highpass_hz=highpass_hz)
+    gains, loss = evaluate(designs, freqs_hz, programme_psd, noise_psd, WEIGHTINGS, treble_from_hz)
+
+    def cand(i):
+        return Candidate(designs[i], {k: float(v[i]) for k, v in gains.items()}, float(loss[i]))
+
+    g = np.where(np.isfinite(gains[weighting]), gains[weighting], -np.inf)
+    front_idx = pareto_front(g, loss)
+    front = tuple(cand(i) for i in front_idx)
+    ci = choose(designs, gains, loss, weighting, budget_db)
+    warnings = list(extra_warnings)
+    if ci is None:
+        warnings.append(f"no candidate keeps the treble loss within {budget_db:g} dB: the programme's treble "
+                        "sits below the hiss; raise --budget-db or leave the treble alone")
+        choice, alternatives = None, ()
+    else:
+        choice = cand(ci)
+        alternatives = _alternatives(designs, gains, loss, weighting, budget_db, ci, cand)
+        if choice.snr_gain_db[weighting] < 0.5:
+            warnings.append(f"the best filter within budget gains only {choice.snr_gain_db[weighting]:.2f} dB "
+                            f"({weighting}): the hiss is too low, or too mixed with the programme, to matter")
+    explanation = explain(choice, alternatives, weighting, budget_db, crossover_hz)
+    return Plan(choice, front, alternatives, float(budget_db), weighting, explanation, tuple(warnings), len(designs),
+                gains[weighting], loss)
+
+
+def _alternatives(designs, gains, loss, weighting, budget_db, ci, cand):
+    """A gentler and a stronger neighbour of the choice: the best within half and twice the budget."""
+    g = gains[weighting]
+    out = []
+    for factor in (0.5, 2.0):
+        ok = np.nonzero((loss <= budget_db * factor) & np.isfinite(g))[0]
+        ok = ok[ok != ci]
+        if ok.size:
+            out.append(cand(int(ok[np.argmax(g[ok])])))
+    return tuple(out)
+
+
+def describe_q(design) -> str:
+    """What the chosen Q does, in words a technician uses."""
+    fig = design.figures()
+    if fig.peak_gain_db > 0.05:
+        shape = f"peaks by {fig.peak_gain_db:.1f} dB near {fig.peak_hz:,.0f} Hz before it falls"
+    else:
+        shape = "stays flat up to the cutoff"
+    overshoot = fig.overshoot_pct or 0.0
+    return f"{shape}; a step overshoots by {overshoot:.1f} %"
+
+
+def explain(choice, alternatives, weighting, budget_db, crossover_hz) -> str:
+    """Two or three sentences: where the programme meets the floor, what Q does, what a step in f0 changes."""
+    if choice is None:
+        return "No filter on the search grid keeps the treble loss within the budget."
+    d = choice.design
+    where = (f"The programme sinks into the hiss above about {crossover_hz:,.0f} Hz. " if crossover_hz
+             else "The programme stays above the hiss across the band. ")
+    what = (f"A cutoff of {d.f0_hz:,.0f} Hz ({choice.label}) gains {choice.snr_gain_db[weighting]:.1f} dB of "
+            f"{weighting}-weighted SNR for {choice.treble_loss_db:.2f} dB of treble within the {budget_db:g} dB "
+            f"budget; it {describe_q(d)}. ")
+    step = ""
+    if alternatives:
+        parts = []
+        for alt in alternatives:
+            parts.append(f"{alt.design.f0_hz:,.0f} Hz would give {alt.snr_gain_db[weighting]:.1f} dB for "
+                         f"{alt.treble_loss_db:.2f} dB of treble")
+        step = "Moving the cutoff: " + "; ".join(parts) + "."
+    return (where + what + step).strip()
