@@ -416,9 +416,8 @@ class Design:
             check_f0(s.f0_hz, self.rate_hz, name="section f0")
             if s.q is not None:
                 check_q(s.q)
-        sos = digitise(self.sections, self.rate_hz, self.method)
-        sos.setflags(write=False)
-        object.__setattr__(self, "sos", sos)
+        # Left writable: scipy.signal.sosfilt refuses a read-only sos array.
+        object.__setattr__(self, "sos", digitise(self.sections, self.rate_hz, self.method))
 
     # -- responses --------------------------------------------------------
     def analog_response(self, f_hz) -> np.ndarray:
