@@ -21,10 +21,13 @@ for the programme estimate x = p and the noise reference x = n, and
 
 (how much the weighted programme-to-noise ratio improves), and
 
-    treble_loss_db = 10·log10(T_p / T_p')
+    treble_loss_db = -10·log10(1 - L / T),   L = ∫ S_p(f)·max(0, 1 - |H(f)|²) df
 
-with T the unweighted programme power from ``treble_from_hz`` to Nyquist: the
-treble the filter takes away from the programme, as a positive number.
+over ``treble_from_hz`` .. Nyquist, T the programme's power there: the share of
+the programme's treble that the filter takes away, as a positive number of dB.
+Only what is cut counts; a resonant peak that lifts one part of the treble does
+not pay for what the slope removes above it (otherwise a low, peaky cutoff could
+look free).
 """
 
 from __future__ import annotations
@@ -49,7 +52,8 @@ class Prediction:
     snr_gain_db : dict
         Weighting name -> gain in weighted programme-to-noise ratio, dB (positive = better).
     treble_loss_db : float
-        Programme power lost above ``treble_from_hz``, dB (positive = lost).
+        Share of the programme's power above ``treble_from_hz`` the filter takes away,
+        dB (positive = lost; module notes).
     response_db : dict
         Filter magnitude at 10 kHz and 15 kHz (keys "10000", "15000"), dB; None above Nyquist.
     noise_before_dbfs, noise_after_dbfs : dict
@@ -145,12 +149,19 @@ def gains_and_losses(h2: np.ndarray, freqs_hz, programme_psd, noise_psd, weighti
         with np.errstate(divide="ignore", invalid="ignore"):
             g = 10.0 * np.log10((pp2 / pn2) / (pp / pn)) if pp > 0 and pn > 0 else np.full(len(h2), np.nan)
         gains[name] = np.where(np.isfinite(g), g, np.nan)
-    treble = freqs_hz >= treble_from_hz
-    t0 = float(np.sum(programme_psd[treble]))
-    t1 = h2[:, treble] @ programme_psd[treble]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        loss = 10.0 * np.log10(t0 / t1) if t0 > 0 else np.zeros(len(h2))
-    return gains, loss
+    return gains, treble_loss_db(h2, freqs_hz, programme_psd, treble_from_hz)
+
+
+def treble_loss_db(h2: np.ndarray, freqs_hz, programme_psd, treble_from_hz: float) -> np.ndarray:
+    """-10·log10(1 - L/T) of the module notes for each row of ``h2`` (n_filters, n_bins); 0 without treble."""
+    treble = np.asarray(freqs_hz) >= treble_from_hz
+    s = np.asarray(programme_psd, dtype=float)[treble]
+    t0 = float(np.sum(s))
+    if t0 <= 0:
+        return np.zeros(len(h2))
+    lost = np.maximum(0.0, 1.0 - h2[:, treble]) @ s
+    with np.errstate(divide="ignore"):
+        return -10.0 * np.log10(np.maximum(1.0 - lost / t0, 0.0))
 
 
 def predict(freqs_hz, programme_psd, noise_psd, design, *, weightings=None,
@@ -211,8 +222,9 @@ class Measured:
     noise_after_dbfs : dict
         Weighting -> weighted level of the noise reference in the output, dBFS.
     treble_loss_db : float
-        Programme power lost above ``treble_from_hz``, dB, measured on the programme
-        estimates (noise subtracted) of input and output.
+        Share of the programme's power above ``treble_from_hz`` taken away, dB
+        (module notes), measured on the programme estimates (noise subtracted) of
+        input and output.
     """
 
     noise_reduction_db: dict
@@ -245,7 +257,9 @@ def measure(freqs_hz, noise_in_psd, noise_out_psd, programme_in_psd, programme_o
         p_in, p_out = band_power(freqs_hz, noise_in_psd, w), band_power(freqs_hz, noise_out_psd, w)
         after[name] = power_dbfs(p_out)
         reduction[name] = 10.0 * math.log10(p_in / p_out) if p_in > 0 and p_out > 0 else None
-    t_in = band_power(freqs_hz, programme_in_psd, lo_hz=treble_from_hz)
-    t_out = band_power(freqs_hz, programme_out_psd, lo_hz=treble_from_hz)
-    loss = 10.0 * math.log10(t_in / t_out) if t_in > 0 and t_out > 0 else 0.0
+    # The render's power response seen through the two programme estimates, bin by bin.
+    p_in = np.asarray(programme_in_psd, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(p_in > 0, np.asarray(programme_out_psd, dtype=float) / p_in, 1.0)
+    loss = float(treble_loss_db(ratio[None, :], freqs_hz, p_in, treble_from_hz)[0])
     return Measured(reduction, after, loss, float(treble_from_hz))

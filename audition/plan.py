@@ -7,7 +7,7 @@ of every candidate on the survey's frequency grid forms one matrix, and the weig
 programme, noise and treble powers are three matrix-vector products.
 
 The choice: the candidate with the highest weighted SNR gain whose treble loss stays
-within the budget. Ties (gains within 0.05 dB) go to the gentler filter (higher f0,
+within the budget and whose resonant peak stays within ``max_peak_db``. Ties (gains within 0.05 dB) go to the gentler filter (higher f0,
 lower order), because a technician would rather keep what cannot be put back.
 """
 
@@ -33,6 +33,9 @@ HIGHER_ALIGNMENTS = ("butterworth", "bessel", "linkwitz-riley")
 F0_POINTS_PER_OCTAVE = 24
 F0_LOW_HZ = 1000.0
 TIE_DB = 0.05
+#: Largest resonant peak allowed by default, dB (engineering judgement: a presence lift
+#: beyond about 1.5 dB is heard as colour, and no loss figure counts it).
+DEFAULT_MAX_PEAK_DB = 1.5
 
 
 @dataclass(frozen=True)
@@ -78,6 +81,7 @@ class Plan:
     searched: int
     all_gain_db: np.ndarray = field(repr=False, compare=False)
     all_loss_db: np.ndarray = field(repr=False, compare=False)
+    all_allowed: np.ndarray = field(repr=False, compare=False)
 
     def to_dict(self) -> dict:
         return {
@@ -126,14 +130,17 @@ def candidate_designs(rate_hz: float, orders=DEFAULT_ORDERS, method: str = "bili
 
 
 def evaluate(designs, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz):
-    """Weighted SNR gain (dict of arrays) and treble loss (array) of every design, in one go."""
+    """Weighted SNR gain (dict of arrays), treble loss and peak gain (arrays, dB) of every design, in one go."""
     from audition.measure import gains_and_losses
 
     freqs_hz = np.asarray(freqs_hz, dtype=float)
     h2 = np.empty((len(designs), freqs_hz.size))
     for i, d in enumerate(designs):
         h2[i] = np.abs(d.digital_response(freqs_hz)) ** 2
-    return gains_and_losses(h2, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz)
+    gains, loss = gains_and_losses(h2, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz)
+    with np.errstate(divide="ignore"):
+        peak_db = 10.0 * np.log10(h2.max(axis=1))
+    return gains, loss, peak_db
 
 
 def pareto_front(gain: np.ndarray, loss: np.ndarray) -> np.ndarray:
@@ -147,10 +154,14 @@ def pareto_front(gain: np.ndarray, loss: np.ndarray) -> np.ndarray:
     return np.array(front, dtype=int)
 
 
-def choose(designs, gains: dict, loss: np.ndarray, weighting: str, budget_db: float) -> int | None:
-    """Index of the best candidate within the budget; None if none fits."""
+def choose(designs, gains: dict, loss: np.ndarray, weighting: str, budget_db: float,
+           allowed: np.ndarray | None = None) -> int | None:
+    """Index of the best candidate within the budget (among ``allowed``); None if none fits."""
     g = gains[weighting]
-    ok = np.nonzero((loss <= budget_db) & np.isfinite(g))[0]
+    ok = (loss <= budget_db) & np.isfinite(g)
+    if allowed is not None:
+        ok &= allowed
+    ok = np.nonzero(ok)[0]
     if ok.size == 0:
         return None
     best = float(np.max(g[ok]))
@@ -162,7 +173,7 @@ def choose(designs, gains: dict, loss: np.ndarray, weighting: str, budget_db: fl
 def plan(freqs_hz, programme_psd, noise_psd, rate_hz: float, *, budget_db: float = DEFAULT_BUDGET_DB,
          weighting: str = DEFAULT_WEIGHTING, orders=DEFAULT_ORDERS, method: str = "bilinear",
          treble_from_hz: float = 2000.0, crossover_hz: float | None = None, highpass_hz: float | None = None,
-         extra_warnings=()) -> Plan:
+         max_peak_db: float = DEFAULT_MAX_PEAK_DB, extra_warnings=()) -> Plan:
     """Search the candidates and choose one.
 
     Parameters
@@ -176,6 +187,9 @@ def plan(freqs_hz, programme_psd, noise_psd, rate_hz: float, *, budget_db: float
     weighting : {"flat", "a", "itu468"}
         The weighting whose SNR gain is maximised.
     orders : sequence of int
+    max_peak_db : float
+        Largest resonant peak a candidate may have, dB (default 1.5: Q up to 1.0 at
+        second order, whose peak is 1.25 dB).
     crossover_hz : float, optional
         Where the programme meets the floor (from the survey), for the explanation.
     """
@@ -187,16 +201,20 @@ def plan(freqs_hz, programme_psd, noise_psd, rate_hz: float, *, budget_db: float
     freqs_hz = np.asarray(freqs_hz, dtype=float)
     programme_psd = np.asarray(programme_psd, dtype=float)
     noise_psd = np.asarray(noise_psd, dtype=float)
+    if not (max_peak_db >= 0 and math.isfinite(max_peak_db)):
+        raise BadParameter(f"max-peak-db={max_peak_db!r}: must be a non-negative number of dB")
     designs = candidate_designs(rate_hz, orders, method, highpass_hz=highpass_hz)
-    gains, loss = evaluate(designs, freqs_hz, programme_psd, noise_psd, WEIGHTINGS, treble_from_hz)
+    gains, loss, peak_db = evaluate(designs, freqs_hz, programme_psd, noise_psd, WEIGHTINGS, treble_from_hz)
+    # A resonant peak colours the programme in a way the treble-loss figure does not count.
+    allowed = peak_db <= max_peak_db + 1e-9
 
     def cand(i):
         return Candidate(designs[i], {k: float(v[i]) for k, v in gains.items()}, float(loss[i]))
 
-    g = np.where(np.isfinite(gains[weighting]), gains[weighting], -np.inf)
+    g = np.where(np.isfinite(gains[weighting]) & allowed, gains[weighting], -np.inf)
     front_idx = pareto_front(g, loss)
-    front = tuple(cand(i) for i in front_idx)
-    ci = choose(designs, gains, loss, weighting, budget_db)
+    front = tuple(cand(i) for i in front_idx if np.isfinite(g[i]))
+    ci = choose(designs, gains, loss, weighting, budget_db, allowed)
     warnings = list(extra_warnings)
     if ci is None:
         warnings.append(f"no candidate keeps the treble loss within {budget_db:g} dB: the programme's treble "
@@ -204,18 +222,17 @@ def plan(freqs_hz, programme_psd, noise_psd, rate_hz: float, *, budget_db: float
         choice, alternatives = None, ()
     else:
         choice = cand(ci)
-        alternatives = _alternatives(designs, gains, loss, weighting, budget_db, ci, cand)
+        alternatives = _alternatives(g, loss, budget_db, ci, cand)
         if choice.snr_gain_db[weighting] < 0.5:
             warnings.append(f"the best filter within budget gains only {choice.snr_gain_db[weighting]:.2f} dB "
                             f"({weighting}): the hiss is too low, or too mixed with the programme, to matter")
     explanation = explain(choice, alternatives, weighting, budget_db, crossover_hz)
     return Plan(choice, front, alternatives, float(budget_db), weighting, explanation, tuple(warnings), len(designs),
-                gains[weighting], loss)
+                gains[weighting], loss, allowed)
 
 
-def _alternatives(designs, gains, loss, weighting, budget_db, ci, cand):
+def _alternatives(g, loss, budget_db, ci, cand):
     """A gentler and a stronger neighbour of the choice: the best within half and twice the budget."""
-    g = gains[weighting]
     out = []
     for factor in (0.5, 2.0):
         ok = np.nonzero((loss <= budget_db * factor) & np.isfinite(g))[0]
@@ -254,3 +271,58 @@ def explain(choice, alternatives, weighting, budget_db, crossover_hz) -> str:
                          f"{alt.treble_loss_db:.2f} dB of treble")
         step = "Moving the cutoff: " + "; ".join(parts) + "."
     return (where + what + step).strip()
+
+
+#: Mains hum fundamentals, Hz.
+MAINS_HZ = (50.0, 60.0)
+HUM_PEAK_DB = 12.0
+CLICK_SPREAD_DB = 1.5
+LOW_HISS_DBFS = -85.0
+BROADBAND_SEPARATION_DB = 6.0
+
+
+def noise_warnings(survey) -> list[str]:
+    """Signs that the noise is not hiss, so a low-pass is the wrong tool (our own thresholds).
+
+    - hum: a line at 50/60 Hz or its first harmonics standing >= 12 dB above the
+      median density of the octave around it;
+    - clicks or crackle: the noise reference's level varies by more than 1.5 dB
+      (standard deviation) between Welch segments, where steady hiss varies by about 0.2 dB;
+    - low-frequency noise: more than half the noise power lies below 1 kHz (rumble, hum);
+    - programme-level noise: the quiet frames lie less than 6 dB below the programme;
+    - negligible hiss: the ITU-R 468-weighted hiss below -85 dBFS.
+    """
+    from audition.measure import band_power, weighted_levels
+
+    f, n = survey.freqs_hz, survey.noise_psd
+    out = []
+    for mains in MAINS_HZ:
+        worst = 0.0
+        for k in (1, 2, 3):
+            fk = mains * k
+            if fk >= f[-1]:
+                continue
+            i = int(np.argmin(np.abs(f - fk)))
+            around = (f > fk / 1.41) & (f < fk * 1.41)
+            med = float(np.median(n[around])) if around.sum() > 4 else 0.0
+            peak = float(n[max(i - 1, 0):i + 2].max())
+            if med > 0 and peak > 0:
+                worst = max(worst, 10 * math.log10(peak / med))
+        if worst >= HUM_PEAK_DB:
+            out.append(f"hum: the noise has a line {worst:.0f} dB above its neighbours at {mains:.0f} Hz or a "
+                       "harmonic; a low-pass does not touch it (use a hum filter)")
+    c = survey.confidence
+    if c.level_spread_db > CLICK_SPREAD_DB:
+        out.append(f"the noise reference's level varies by {c.level_spread_db:.1f} dB between segments (steady hiss "
+                   "varies by about 0.2 dB): clicks, crackle or a changing floor; de-click before choosing a low-pass")
+    total = band_power(f, n)
+    if total > 0 and band_power(f, n, hi_hz=1000.0) > 0.5 * total:
+        out.append("most of the noise power lies below 1 kHz (rumble or hum, not hiss): a low-pass is the wrong "
+                   "tool for it")
+    if c.separation_db is not None and c.separation_db < BROADBAND_SEPARATION_DB:
+        out.append(f"the quiet frames lie only {c.separation_db:.1f} dB below the programme: the noise is at "
+                   "programme level, or the noise reference holds programme; give --noise-span over hiss alone")
+    hiss = weighted_levels(f, n, ("itu468",))["itu468"]
+    if hiss < LOW_HISS_DBFS:
+        out.append(f"the hiss is very low ({hiss:.1f} dBFS, ITU-R 468 weighted): a hiss filter will hardly be heard")
+    return out

@@ -5,8 +5,10 @@ import doctest
 import pytest
 
 import audition.design
+import audition.loudness
+import audition.weighting
 
-MODULES = [audition.design]
+MODULES = [audition.design, audition.loudness, audition.weighting]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)

@@ -39,3 +39,15 @@ def save_figure(fig, path: str | os.PathLike, dpi: int = 120) -> None:
         raise
     finally:
         pyplot().close(fig)
+
+
+def figure_png(fig, dpi: int = 110) -> bytes:
+    """The figure as PNG bytes (for pages that embed their pictures), then closed."""
+    import io
+
+    buf = io.BytesIO()
+    try:
+        fig.savefig(buf, format="png", dpi=dpi)
+    finally:
+        pyplot().close(fig)
+    return buf.getvalue()

@@ -1,0 +1,104 @@
+"""``audition survey``: the hiss against the programme, and what a filter would do."""
+
+from __future__ import annotations
+
+import json
+
+from audition.cli.filteropts import add_filter_options
+from audition.cli.noiseopts import add_noise_options
+
+HELP = "survey the noise floor against the programme; predict a filter's SNR gain and treble loss"
+WEIGHTING_NOTE = ("A-weighting (IEC 61672-1) and ITU-R BS.468-4 weighting are applied to the power spectrum "
+                  "(RMS detection, not the 468 quasi-peak meter); levels are dBFS as 20*log10(rms), "
+                  "a full-scale sine reading -3.01 dBFS")
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser("survey", help=HELP, description=HELP.capitalize() + ".")
+    p.add_argument("input", metavar="IN", help="the recording (any format libsndfile reads)")
+    add_noise_options(p)
+    add_filter_options(p, title="filter to predict (optional)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--plot", metavar="FILE.png", help="draw the spectra, the crossover and any filter")
+    p.set_defaults(run=run)
+
+
+def survey_report(s, design=None, treble_from_hz: float = 2000.0) -> dict:
+    """The JSON object of a survey (and of a prediction when a design is given)."""
+    from audition import measure
+    from audition.weighting import WEIGHTINGS
+
+    d = s.to_dict()
+    d["noise"]["rms_dbfs"] = measure.weighted_levels(s.freqs_hz, s.noise_psd, WEIGHTINGS)
+    d["programme"]["rms_dbfs"] = measure.weighted_levels(s.freqs_hz, s.programme_psd, WEIGHTINGS)
+    d["weighting_note"] = WEIGHTING_NOTE
+    if design is not None:
+        d["prediction"] = measure.predict(s.freqs_hz, s.programme_psd, s.noise_psd, design,
+                                          treble_from_hz=treble_from_hz).to_dict()
+        d["filter"] = design.to_dict()
+    return d
+
+
+def format_report(path, r: dict) -> str:
+    def lv(x):
+        return "   —   " if x is None or x == float("-inf") else f"{x:7.1f}"
+
+    n = r["noise"]
+    conf = n["confidence"]
+    spans = ", ".join(f"{a:.2f}–{b:.2f} s" for a, b in n["spans"][:6]) + (" …" if len(n["spans"]) > 6 else "")
+    where = {"auto": f"found automatically: {spans}", "spans": f"given spans: {spans}",
+             "clip": "a separate noise clip"}[n["source"]]
+    lines = [
+        f"{path}: {r['seconds']:.2f} s, {r['rate_hz']:,.0f} Hz, {r['channels']} channel(s)",
+        f"noise reference, {where}",
+        f"  confidence {conf['grade']}: " + (f"{conf['separation_db']:.1f} dB below the programme, "
+                                              if conf["separation_db"] is not None else "")
+        + f"{conf['noise_seconds']:.2f} s of hiss, level spread {conf['level_spread_db']:.2f} dB",
+        "",
+        f"  {'level (dBFS, RMS)':<22}{'flat':>8}{'A':>8}{'ITU-468':>9}",
+        f"  {'hiss':<22}" + "".join(f"{lv(n['rms_dbfs'][k]):>8}" for k in ("flat", "a")) + f"{lv(n['rms_dbfs']['itu468']):>9}",
+        f"  {'programme (estimate)':<22}" + "".join(f"{lv(r['programme']['rms_dbfs'][k]):>8}" for k in ("flat", "a"))
+        + f"{lv(r['programme']['rms_dbfs']['itu468']):>9}",
+        "",
+        ("  the programme sinks below the hiss above about "
+         f"{r['crossover_hz']:,.0f} Hz (1/{r['band_fraction']}-octave bands, margin {r['margin_db']:g} dB)"
+         if r["crossover_hz"] else "  the programme stays above the hiss in every band"),
+    ]
+    if "prediction" in r:
+        p = r["prediction"]
+        g = p["snr_gain_db"]
+        lines += [
+            "",
+            "  with the filter:",
+            f"    SNR gain (dB)         flat {g['flat']:+.2f}   A {g['a']:+.2f}   ITU-468 {g['itu468']:+.2f}",
+            f"    hiss after (dBFS)     flat {p['noise_after_dbfs']['flat']:.1f}   A {p['noise_after_dbfs']['a']:.1f}"
+            f"   ITU-468 {p['noise_after_dbfs']['itu468']:.1f}",
+            f"    treble loss           {p['treble_loss_db']:.2f} dB of programme above {p['treble_from_hz']:,.0f} Hz",
+            "    response              " + "   ".join(
+                f"{int(k) // 1000} kHz " + ("—" if v is None else f"{v:+.1f} dB") for k, v in p["response_db"].items()),
+        ]
+    lines += ["", "  " + WEIGHTING_NOTE]
+    return "\n".join(lines)
+
+
+def run(args) -> int:
+    from audition import audiofile
+    from audition.cli.filteropts import design_from_args
+
+    inf = audiofile.info(args.input)
+    d = design_from_args(args, inf.rate_hz)  # checked before the long read
+    from audition.cli.noiseopts import survey_file
+
+    s = survey_file(args.input, args)
+    r = survey_report(s, d, args.treble_from)
+    if args.plot:
+        from audition.plots.survey import plot_survey
+
+        plot_survey(s, args.plot, design=d, title=str(args.input))
+    if args.json:
+        print(json.dumps(r, indent=2))
+    else:
+        print(format_report(args.input, r))
+        if args.plot:
+            print(f"plot written to {args.plot}")
+    return 0
