@@ -1,0 +1,361 @@
+"""The streaming engine: reader -> second-order sections -> dither/quantise -> atomic writer.
+
+A file of any length goes through in blocks of :data:`~audition.audiofile.BLOCK_FRAMES`
+frames with the filter state carried from block to block (``zi`` in, ``zf``
+out), so the result is that of one pass over the whole signal and the memory
+used does not grow with the length of the file. Reading, filtering and writing
+overlap in three threads: libsndfile and scipy's ``sosfilt`` release the GIL
+for their inner loops, so on two cores the render takes about as long as a
+plain copy of the file.
+
+Nothing here parses arguments or prints; :mod:`audition.cli.render` does.
+"""
+
+from __future__ import annotations
+
+import os
+import queue
+import threading
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from audition import __version__, audiofile
+from audition.errors import BadInputFile, BadParameter, OutputRefused
+
+#: Blocks in flight between two threads; bounds the memory (a few MiB).
+QUEUE_DEPTH = 4
+
+
+class StreamingFilter:
+    """A cascade of second-order sections applied block by block with its state carried.
+
+    Parameters
+    ----------
+    sos : array_like, (n_sections, 6)
+        Rows ``[b0, b1, b2, 1, a1, a2]`` as in :func:`scipy.signal.sosfilt`.
+    channels : int
+
+    Attributes
+    ----------
+    zi : np.ndarray, (n_sections, 2, channels)
+        The state before the next block (zeros at the start: the signal is
+        taken to be silent before its first sample).
+
+    Notes
+    -----
+    Each call is ``y, zf = scipy.signal.sosfilt(sos, x, axis=0, zi=zi)`` and
+    ``zf`` becomes the next ``zi``; the transposed direct form II of every
+    section is exactly the same recursion whether or not the signal is cut, so
+    the blocks join without a seam.
+    """
+
+    def __init__(self, sos, channels: int):
+        from scipy.signal import sosfilt
+
+        self._sosfilt = sosfilt
+        self.sos = np.array(sos, dtype=np.float64, ndmin=2)
+        if self.sos.shape[1] != 6:
+            raise BadParameter(f"sos of shape {self.sos.shape!r}: need (n_sections, 6)")
+        self.zi = np.zeros((len(self.sos), 2, channels))
+
+    def __call__(self, x: np.ndarray) -> np.ndarray:
+        if not len(self.sos):
+            return x
+        y, self.zi = self._sosfilt(self.sos, x, axis=0, zi=self.zi)
+        return y
+
+
+@dataclass(frozen=True)
+class RenderResult:
+    """What one render did.
+
+    Attributes
+    ----------
+    input, output, sidecar : str
+        Paths (sidecar None when none was written).
+    rate_hz : float
+    channels : int
+    format, subtype, input_subtype : str
+        Output container and subtype; the input's subtype.
+    frames : int
+        Frames written.
+    sections : int
+        Second-order (or first-order) sections applied.
+    method : str
+    dither : bool
+        True when TPDF dither was added (integer outputs with dither on).
+    dither_bits : int or None
+        Output word length the dither is scaled to (None for float outputs).
+    seed : int
+    peak_dbfs : float or None
+        Sample peak of the written output, dBFS (full scale = 0 dBFS); not a
+        true-peak (inter-sample) reading. None for digital silence.
+    clipped_samples : int
+        Samples beyond full scale (saturated for integer outputs, kept in float ones).
+    trim_db : float
+        Level reduction that would have kept every sample within full scale.
+    input_sha256 : str
+    seconds : float
+        Wall time of the render.
+    realtime_factor : float
+        Duration of the audio divided by ``seconds``.
+    """
+
+    input: str
+    output: str
+    sidecar: str | None
+    rate_hz: float
+    channels: int
+    format: str
+    subtype: str
+    input_subtype: str
+    frames: int
+    sections: int
+    method: str
+    dither: bool
+    dither_bits: int | None
+    seed: int
+    peak_dbfs: float | None
+    clipped_samples: int
+    trim_db: float
+    input_sha256: str
+    seconds: float
+    realtime_factor: float
+
+    @property
+    def audio_seconds(self) -> float:
+        return self.frames / self.rate_hz
+
+
+def output_subtype(reader_subtype: str, subtype: str | None, fmt: str, in_path: str) -> str:
+    """The subtype to write: the input's unless one is asked for; refuse one audition cannot write."""
+    if subtype is not None:
+        return subtype
+    if reader_subtype not in audiofile.OUTPUT_SUBTYPES:
+        raise BadInputFile(f"{in_path!r}: its {fmt} {reader_subtype} encoding is read but not written by audition; "
+                           f"give --subtype ({', '.join(audiofile.OUTPUT_SUBTYPES)})")
+    return reader_subtype
+
+
+def render_file(in_path, out_path, design, *, subtype: str | None = None, dither: bool = True, seed: int = 0,
+                overwrite: bool = False, sidecar: bool = True, block_frames: int = audiofile.BLOCK_FRAMES,
+                progress=None, record_extra: dict | None = None, threads: bool = True) -> RenderResult:
+    """Filter a sound file into a new one, streaming, atomically, with a sidecar record.
+
+    Parameters
+    ----------
+    in_path, out_path : str or os.PathLike
+        The input is only read; the output must be another file.
+    design : audition.design.Design
+        Its ``rate_hz`` must be the file's rate (see :func:`audition.audiofile.info`).
+    subtype : str, optional
+        Output subtype (default: the input's). The container is always the input's.
+    dither : bool
+        TPDF dither of +-1 LSB at the output word length for integer outputs.
+    seed : int
+        Seed of the dither generator: the same inputs give the same bytes.
+    overwrite : bool
+        Replace an existing output (and sidecar); never the input.
+    sidecar : bool
+        Write ``OUT.json`` beside the output (default True).
+    block_frames : int
+        Frames per block; the result does not depend on it.
+    progress : callable, optional
+        ``progress(frames_done, frames_total)``, called from this thread after each block.
+    record_extra : dict, optional
+        More keys for the sidecar (e.g. the plan or preset a design came from).
+    threads : bool
+        Overlap reading, filtering and writing (default True); False runs
+        everything in this thread (same output).
+
+    Returns
+    -------
+    RenderResult
+
+    Raises
+    ------
+    BadInputFile, BadParameter, OutputRefused
+        With nothing left behind: no output, no sidecar, no temporary file.
+    """
+    t0 = time.perf_counter()
+    in_path, out_path = os.fspath(in_path), os.fspath(out_path)
+    if block_frames < 1:
+        raise BadParameter(f"block_frames={block_frames!r}: must be at least 1")
+    side_path = audiofile.sidecar_path(out_path) if sidecar else None
+    # refuse a bad output before opening anything, so the message names the real problem
+    audiofile.check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
+    if side_path is not None:
+        audiofile.check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
+    with audiofile.AudioReader(in_path, hash_input=True) as reader:
+        if abs(design.rate_hz - reader.rate_hz) > 1e-9 * reader.rate_hz:
+            raise BadParameter(f"{in_path!r}: the design is for {design.rate_hz:g} Hz but the file is at "
+                               f"{reader.rate_hz:g} Hz; design it with the file's rate")
+        out_subtype = output_subtype(reader.subtype, subtype, reader.format, in_path)
+        writer = audiofile.AtomicWriter(out_path, reader.rate_hz, reader.channels, format=reader.format,
+                                        subtype=out_subtype, overwrite=overwrite, inputs=[in_path],
+                                        metadata=reader.metadata, dither=dither, seed=seed,
+                                        frames_hint=reader.frames)
+        side = None
+        try:
+            filt = StreamingFilter(design.sos, reader.channels)
+            run = _run_threaded if threads else _run_serial
+            run(reader, filt, writer, block_frames, progress)
+            writer.finish()
+            stats = writer.stats
+            sha = reader.sha256()
+            if side_path is not None:
+                record = sidecar_record(reader, writer, design, sha, dither=dither, seed=seed)
+                if record_extra:
+                    record.update(record_extra)
+                side = audiofile.SidecarWriter(side_path, record)
+            writer.commit()
+            if side is not None:
+                side.commit()
+        except BaseException:
+            writer.abort()
+            if side is not None:
+                side.abort()
+            raise
+        seconds = time.perf_counter() - t0
+        q = writer.quantiser
+        return RenderResult(
+            input=in_path, output=out_path, sidecar=side_path, rate_hz=reader.rate_hz, channels=reader.channels,
+            format=reader.format, subtype=out_subtype, input_subtype=reader.subtype, frames=stats.frames,
+            sections=len(design.sos), method=design.method, dither=bool(q is not None and q.dither),
+            dither_bits=None if q is None else q.bits, seed=seed, peak_dbfs=stats.peak_dbfs,
+            clipped_samples=stats.clipped_samples, trim_db=stats.trim_db, input_sha256=sha, seconds=seconds,
+            realtime_factor=(stats.frames / reader.rate_hz) / seconds if seconds > 0 else float("inf"))
+
+
+def sidecar_record(reader, writer, design, sha256: str, *, dither: bool, seed: int) -> dict:
+    """The archive record of one render: what went in, what was done, what came out."""
+    stats = writer.stats
+    q = writer.quantiser
+    if q is None:
+        dither_rec = {"kind": "none", "reason": f"{writer.subtype} is a float subtype"}
+    elif q.dither:
+        dither_rec = {"kind": "tpdf", "peak_lsb": 1.0, "bits": q.bits, "seed": seed, "generator": "numpy PCG64"}
+    else:
+        dither_rec = {"kind": "none", "reason": "turned off", "bits": q.bits}
+    info = reader.info
+    return {
+        "audition_version": __version__,
+        "processed_utc": audiofile.utc_now_iso(),
+        "input": {
+            "path": os.path.abspath(info.path), "size_bytes": info.size_bytes, "sha256": sha256,
+            "format": info.format, "subtype": info.subtype, "rate_hz": info.rate_hz, "channels": info.channels,
+            "frames": info.frames,
+        },
+        "output": {
+            "path": os.path.abspath(writer.path), "format": writer.format, "subtype": writer.subtype,
+            "frames": stats.frames, "metadata_copied": sorted(writer.metadata_written),
+        },
+        "design": design.to_dict(),
+        "dither": dither_rec,
+        "peak_dbfs": stats.peak_dbfs,
+        "peak_kind": "sample peak of the written output, full scale = 0 dBFS",
+        "clipped_samples": stats.clipped_samples,
+        "trim_db": stats.trim_db,
+    }
+
+
+# ---------------------------------------------------------------------------
+# The two ways of running the chain (same output)
+# ---------------------------------------------------------------------------
+
+
+def _run_serial(reader, filt, writer, block_frames, progress):
+    done = 0
+    for x in reader.blocks(block_frames):
+        writer.write_quantised(writer.quantise(filt(x)))
+        done += len(x)
+        if progress is not None:
+            progress(done, reader.frames)
+
+
+_END = object()
+
+
+class _Failed:
+    def __init__(self, exc: BaseException):
+        self.exc = exc
+
+
+def _put(q: queue.Queue, item, stop: threading.Event) -> bool:
+    """Put unless told to stop (a full queue never deadlocks a failed pipeline)."""
+    while not stop.is_set():
+        try:
+            q.put(item, timeout=0.1)
+            return True
+        except queue.Full:
+            continue
+    return False
+
+
+def _get(q: queue.Queue, stop: threading.Event):
+    while not stop.is_set():
+        try:
+            return q.get(timeout=0.1)
+        except queue.Empty:
+            continue
+    return _END
+
+
+def _run_threaded(reader, filt, writer, block_frames, progress):
+    """Reader thread -> this thread (filter, quantise) -> writer thread, each hand-over a bounded queue."""
+    q_in: queue.Queue = queue.Queue(QUEUE_DEPTH)
+    q_out: queue.Queue = queue.Queue(QUEUE_DEPTH)
+    stop = threading.Event()
+    write_error: list[BaseException] = []
+
+    def read_loop():
+        try:
+            for x in reader.blocks(block_frames):
+                if not _put(q_in, x, stop):
+                    return
+            _put(q_in, _END, stop)
+        except BaseException as exc:  # handed to the main thread, which re-raises it
+            _put(q_in, _Failed(exc), stop)
+
+    def write_loop():
+        try:
+            while True:
+                y = _get(q_out, stop)
+                if y is _END:
+                    return
+                writer.write_quantised(y)
+        except BaseException as exc:
+            write_error.append(exc)
+            stop.set()
+
+    threads = [threading.Thread(target=read_loop, name="audition-read", daemon=True),
+               threading.Thread(target=write_loop, name="audition-write", daemon=True)]
+    for t in threads:
+        t.start()
+    done = 0
+    try:
+        while True:
+            x = _get(q_in, stop)
+            if x is _END:
+                break
+            if isinstance(x, _Failed):
+                raise x.exc
+            y = writer.quantise(filt(x))
+            if not _put(q_out, y, stop):
+                break
+            done += len(x)
+            if progress is not None:
+                progress(done, reader.frames)
+        _put(q_out, _END, stop)
+        threads[1].join()
+    except BaseException:
+        stop.set()
+        raise
+    finally:
+        stop.set()
+        for t in threads:
+            t.join()
+    if write_error:
+        raise write_error[0]
