@@ -69,6 +69,14 @@ CAUTION = ("Caution: mains-powered gear and any voltage above a few volts need t
 #: impedance, for sqrt(L/C) of a passive section; 10 kohm for an op-amp section's
 #: resistors (low enough for low noise, high enough for an easy load).
 DEFAULT_IMPEDANCE_OHM = {"series-rlc": 600.0, "sallen-key": 10000.0}
+#: The impedance levels accepted (engineering judgement): below 1 ohm the wiring and
+#: the parts' own resistance take over, above 10 Mohm stray capacitance and leakage.
+IMPEDANCE_RANGE_OHM = (1.0, 1e7)
+#: The lowest section f0 an analog target accepts: below it the parts run to
+#: kilohenries and farads (engineering judgement).
+ANALOG_MIN_F0_HZ = 1.0
+#: Tolerance classes summarised side by side (the usual classes of resistors and capacitors).
+TOLERANCE_CLASSES_PCT = (1.0, 2.0, 5.0, 10.0)
 #: The audio band over which the real response is compared with the target.
 ANALOG_BAND_HZ = (20.0, 20000.0)
 _TIE_WEIGHT = 1e-5
@@ -99,9 +107,13 @@ def nearest_preferred(value: float, series: str) -> float:
     return float(lad[i])
 
 
-def _window(series: str, lo: float, hi: float) -> np.ndarray:
+def _window(series: str, lo: float, hi: float, what: str = "a part") -> np.ndarray:
     lad = ladder(series)
-    return lad[(lad >= lo * (1 - 1e-12)) & (lad <= hi * (1 + 1e-12))]
+    out = lad[(lad >= lo * (1 - 1e-12)) & (lad <= hi * (1 + 1e-12))]
+    if out.size == 0:
+        raise BadParameter(f"no {series} value for {what} between {lo:.3g} and {hi:.3g} (SI units): the ideal part "
+                           f"lies outside {lad[0]:g} .. {lad[-1]:g}; choose another --impedance-ohm")
+    return out
 
 
 def _around(series: str, values: np.ndarray, n: int = 3) -> np.ndarray:
@@ -274,6 +286,22 @@ class Stage:
         f0, q, h0 = self.figures()
         return lowpass_response(f_hz, f0, q, h0)
 
+    @property
+    def series_r_key(self) -> str:
+        """The part the source impedance adds to: "r1_ohm" of a Sallen–Key stage, else "r_ohm"."""
+        return "r1_ohm" if "r1_ohm" in self.parts else "r_ohm"
+
+    def figures_with(self, *, source: bool = True, load: bool = True):
+        """(f0_hz, q or None, h0) of the same parts with the source and/or the load taken away.
+
+        Set beside :meth:`figures` it shows what each does: the source adds to
+        the series R (lower Q in a series RLC stage, lower f0 and another Q in a
+        Sallen–Key stage); a load across C lowers H0 to RL/(RL + Rt), raises f0
+        by sqrt(k), k = 1 + Rt/RL, and changes Q (see :func:`series_rlc`).
+        """
+        return _stage_figures(self.topology, self.parts, self.source_ohm if source else 0.0,
+                              self.load_ohm if load else None)
+
     def errors(self, parts: dict | None = None) -> dict:
         """f0 and Q error in percent and H0 error in dB against the target section."""
         f0, q, h0 = self.figures(parts)
@@ -382,9 +410,12 @@ class Realisation:
                 "source_ohm": st.source_ohm,
                 "load_ohm": st.load_ohm,
                 "target": {"f0_hz": st.target.f0_hz, "q": st.target.q, "h0_db": st.target.gain_db},
-                "achieved": {"f0_hz": float(f0), "q": None if q is None else float(q),
-                             "h0_db": 20.0 * math.log10(float(h0))},
+                "achieved": _figures_dict(f0, q, h0),
                 "error": st.errors(),
+                "r_total_ohm": float(st.parts[st.series_r_key]) + st.source_ohm,
+                "without_load": _figures_dict(*st.figures_with(load=False)),
+                "without_source": _figures_dict(*st.figures_with(source=False)),
+                "without_source_and_load": _figures_dict(*st.figures_with(source=False, load=False)),
                 "ideal": {k: float(v) for k, v in st.ideal.items()},
                 "nearest_of_each": {"parts": {k: float(v) for k, v in st.nearest.items()},
                                     "error": st.errors(st.nearest)},
@@ -414,6 +445,12 @@ class Realisation:
     def notes(self) -> list[str]:
         """Plain statements of what the figures assume, and practical remarks on the parts."""
         out = []
+        want = self.target_h0_db
+        if abs(want) > 1e-9:
+            can = ("a unity-gain Sallen–Key stage gives 0 dB" if self.topology == "sallen-key"
+                   else "a passive stage gives at most 0 dB")
+            out.append(f"the design asks H0 {want:+.2f} dB but {can}: add a gain stage of {want - self.h0_db:+.2f} dB "
+                       "or leave --gain-db out")
         if len(self.stages) > 1:
             out.append("stages are assumed buffered from each other (e.g. an op-amp follower between them): "
                        "the source drives the first stage only and the load hangs on the last")
@@ -435,6 +472,10 @@ class Realisation:
                     out.append(f"stage {i}: {k.split('_')[0].upper()} = {v:.3g} ohm is outside 100 ohm .. 1 Mohm, "
                                "awkward for an op-amp stage")
         return out
+
+
+def _figures_dict(f0, q, h0) -> dict:
+    return {"f0_hz": float(f0), "q": None if q is None else float(q), "h0_db": 20.0 * math.log10(float(h0))}
 
 
 def _cost(f0, q, f0_t, q_t, z, z_nom):
@@ -481,7 +522,7 @@ def _realise_rc(sec: Section, *, r_series, c_series, impedance_ohm, source_ohm, 
         return 1.0 / (w0 * rp)
 
     r_ideal = impedance_ohm
-    rs = _window(r_series, impedance_ohm / 2, impedance_ohm * 2)
+    rs = _window(r_series, impedance_ohm / 2, impedance_ohm * 2, "R")
     cs = _around(c_series, c_for(rs))
     rr = rs[:, None]
     f0, _ = rc_lowpass(rr, cs, source_ohm=source_ohm, load_ohm=load_ohm)
@@ -503,8 +544,8 @@ def _realise_rlc(sec: Section, *, r_series, c_series, l_series, impedance_ohm, s
     # sqrt(LC) = sqrt(k)/w0 keeps f0 with the load; sqrt(L/C) = z0 sets the level.
     l0, c0 = z0 * math.sqrt(k0) / w0, math.sqrt(k0) / (w0 * z0)
     ideal = {"r_ohm": rt0 - source_ohm, "l_henry": l0, "c_farad": c0}
-    ls = _window(l_series, l0 / 2, l0 * 2)[:, None, None]
-    cs = _window(c_series, c0 / 2, c0 * 2)[None, :, None]
+    ls = _window(l_series, l0 / 2, l0 * 2, "L")[:, None, None]
+    cs = _window(c_series, c0 / 2, c0 * 2, "C")[None, :, None]
     z = np.sqrt(ls / cs)
     r_need = _rt_for_q(z, q, load_ohm) - source_ohm
     rs = _around(r_series, r_need[..., 0])
@@ -535,8 +576,8 @@ def _realise_sk(sec: Section, *, r_series, c_series, impedance_ohm, source_ohm) 
     if ideal["r1_ohm"] <= 0:
         raise BadParameter(f"source-ohm={source_ohm!r}: the source impedance exceeds the Sallen-Key input "
                            f"resistor at impedance-ohm={rn!r}; raise --impedance-ohm above the source impedance")
-    c1 = _window(c_series, c1_0 / 3, c1_0 * 3)[:, None]
-    c2 = _window(c_series, c2_0 / 3, c2_0 * 3)[None, :]
+    c1 = _window(c_series, c1_0 / 3, c1_0 * 3, "C1")[:, None]
+    c2 = _window(c_series, c2_0 / 3, c2_0 * 3, "C2")[None, :]
     prod = 1.0 / (w0 * w0 * c1 * c2)  # R1t R2
     tot = 1.0 / (w0 * q * c2)  # R1t + R2
     disc = tot * tot - 4 * prod
@@ -562,6 +603,10 @@ def _realise_sk(sec: Section, *, r_series, c_series, impedance_ohm, source_ohm) 
 def _check_impedances(impedance_ohm, source_ohm, load_ohm):
     if not (isinstance(impedance_ohm, (int, float)) and math.isfinite(impedance_ohm) and impedance_ohm > 0):
         raise BadParameter(f"impedance-ohm={impedance_ohm!r}: must be a positive number of ohms")
+    lo, hi = IMPEDANCE_RANGE_OHM
+    if not lo <= impedance_ohm <= hi:
+        raise BadParameter(f"impedance-ohm={impedance_ohm!r}: must lie within {lo:g} .. {hi:g} ohm (below, wiring and "
+                           "the parts' own resistance take over; above, stray capacitance and leakage)")
     if not (isinstance(source_ohm, (int, float)) and math.isfinite(source_ohm) and source_ohm >= 0):
         raise BadParameter(f"source-ohm={source_ohm!r}: must be 0 or a positive number of ohms")
     if load_ohm is not None and not (isinstance(load_ohm, (int, float)) and load_ohm > 0 and not math.isnan(load_ohm)):
@@ -574,6 +619,10 @@ def _split(design: Design):
     lows = tuple(s for s in design.sections if s.kind == "lowpass")
     if not lows:
         raise BadParameter("the design has no low-pass section to realise as a circuit")
+    for s in lows:
+        if s.f0_hz < ANALOG_MIN_F0_HZ:
+            raise BadParameter(f"f0={s.f0_hz!r} Hz: an analog target needs f0 >= {ANALOG_MIN_F0_HZ:g} Hz (below it "
+                               "the parts run to kilohenries and farads)")
     return lows, tuple(s for s in design.sections if s.kind != "lowpass")
 
 
@@ -799,6 +848,41 @@ def monte_carlo(realisation: Realisation, *, tolerance_pct: float = 5.0, inducto
     dev = _db(tol.responses(f)) - _db(realisation.target_response(f))[None, :]
     object.__setattr__(tol, "max_deviation_db", np.max(np.abs(dev), axis=1))
     return tol
+
+
+def tolerance_classes(realisation: Realisation, *, classes_pct=TOLERANCE_CLASSES_PCT,
+                      inductor_tolerance_pct: float = 10.0, trials: int = 2000, seed: int = 0) -> list[dict]:
+    """The Monte Carlo of :func:`monte_carlo` repeated for each resistor/capacitor tolerance class.
+
+    Every class uses the same seed, so the builds differ only by the width of
+    the tolerance (common random numbers): the classes compare like with like.
+    The inductors keep ``inductor_tolerance_pct`` throughout, which shows when
+    they, not the resistors and capacitors, set the spread.
+
+    Returns
+    -------
+    list of dict
+        One per class: ``tolerance_pct``; ``stages``, each with the 5th and 95th
+        percentiles of f0 and Q as percent errors against the stage's target
+        (``q_pct`` None for first order); ``max_deviation_db``, the 50th and 95th
+        percentiles of the worst |real - target| over 20 Hz .. 20 kHz.
+    """
+    out = []
+    for t in classes_pct:
+        tol = monte_carlo(realisation, tolerance_pct=float(t), inductor_tolerance_pct=inductor_tolerance_pct,
+                          trials=trials, seed=seed)
+        stages = []
+        for j, st in enumerate(realisation.stages):
+            f5, f95 = np.percentile(tol.f0_hz[:, j], [5, 95]) / st.target.f0_hz * 100.0 - 100.0
+            row = {"index": j + 1, "f0_pct": {"p5": float(f5), "p95": float(f95)}, "q_pct": None}
+            if st.target.q is not None:
+                q5, q95 = np.percentile(tol.q[:, j], [5, 95]) / st.target.q * 100.0 - 100.0
+                row["q_pct"] = {"p5": float(q5), "p95": float(q95)}
+            stages.append(row)
+        d50, d95 = np.percentile(tol.max_deviation_db, [50, 95])
+        out.append({"tolerance_pct": float(t), "inductor_tolerance_pct": float(inductor_tolerance_pct),
+                    "stages": stages, "max_deviation_db": {"p50": float(d50), "p95": float(d95)}})
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -1041,6 +1125,7 @@ class Coefficients:
         single = len(d.sections) == 1
         return {
             "as": "coefficients",
+            "headroom": headroom(d.sos, d.rate_hz),
             "rate_hz": d.rate_hz,
             "method": d.method,
             "target": {"f0_hz": d.f0_hz, "q": d.q, "h0_db": d.passband_gain_db, "order": d.order,
@@ -1063,6 +1148,30 @@ ARITHMETIC = ("direct form I per section; samples in Q1.(W-1) of the same word l
               "acc = b0*x[n] + b1*x[n-1] + b2*x[n-2] - a1*y[n-1] - a2*y[n-2] summed exactly in a wide "
               "accumulator (at least 2W+3 bits); y[n] = saturate((acc + 2^(F-1)) >> F) with F the coefficients' "
               "fractional bits (round half up, arithmetic shift), saturated to the W-bit sample range")
+
+
+def headroom(sos, rate_hz: float) -> dict:
+    """The largest gain from the input to any section's output, over 0 .. rate/2.
+
+    A fixed-point cascade saturates at full scale after every section, so a
+    section output that peaks above the input (a resonant section, a gain above
+    0 dB) needs that much headroom at the input: keep the input's peak below
+    -peak_gain_db dBFS (common practice, no source). This is the gain for
+    steady sines; a transient can overshoot a little more (bounded by the sum of
+    |h[n]|, not computed here). Returned: {"peak_gain_db",
+    "peak_hz", "after_section"} (section counted from 1), the worst case.
+    """
+    f = np.linspace(0.0, rate_hz / 2, 8193)
+    z1 = np.exp(-2j * math.pi * f / rate_hz)
+    h = np.ones_like(z1)
+    best = (-math.inf, 0.0, 1)
+    for i, (b0, b1, b2, a0, a1, a2) in enumerate(np.asarray(sos, dtype=float), 1):
+        h = h * (b0 + z1 * (b1 + z1 * b2)) / (a0 + z1 * (a1 + z1 * a2))
+        g = _db(h)
+        k = int(np.argmax(g))
+        if g[k] > best[0]:
+            best = (float(g[k]), float(f[k]), i)
+    return {"peak_gain_db": best[0], "peak_hz": best[1], "after_section": best[2]}
 
 
 def _digital_f0(d: Design, sos) -> float | None:
@@ -1190,6 +1299,7 @@ def c_header(coeffs: Coefficients, name: str, *, version: str = "") -> str:
             + (f", high-pass {d.highpass_hz:g} Hz" if d.highpass_hz else "")
             + f", H0 {d.passband_gain_db:+.2f} dB")
     lo, hi = d.deviation_band_hz()
+    hr = headroom(d.sos, d.rate_hz)
     lines = [
         f"/* {ident}.h: {what}; {n} section(s) at {d.rate_hz:g} Hz, {d.method} method.",
         f" * Written by audition{(' ' + version) if version else ''} (realize --as coefficients).",
@@ -1204,6 +1314,10 @@ def c_header(coeffs: Coefficients, name: str, *, version: str = "") -> str:
         f" * Deviation: |H| of the rounded coefficients minus |H| in double, dB, worst point in {lo:g} .. {hi:g} Hz;",
         " * Noise floor: the arithmetic's rounding noise at the output, rms dBFS (20 log10, full-scale sine",
         " * = -3.01 dBFS), modelled as white, LSB^2/12 per rounding.",
+        f" * Headroom: the gain up to section {hr['after_section']} peaks at {hr['peak_gain_db']:+.2f} dB "
+        f"({hr['peak_hz']:.0f} Hz, sine); "
+        + (f"keep the input's peak below {-hr['peak_gain_db']:.2f} dB re full scale (peak) or it saturates."
+           if hr["peak_gain_db"] > 0.005 else "no section output rises above the input."),
         " */",
         f"#ifndef {up}_H",
         f"#define {up}_H",

@@ -45,6 +45,20 @@ def test_e96_is_ten_to_the_i_over_96_rounded_to_three_figures():
     assert [round(100 * 10 ** (i / 96)) for i in range(96)] == E96_PUBLISHED
 
 
+@pytest.mark.parametrize("name,published,n,kept", [
+    ("E24", E24_PUBLISHED, 24, {27: 26, 30: 29, 33: 32, 36: 35, 39: 38, 43: 42, 47: 46, 82: 83}),
+    ("E12", E12_PUBLISHED, 12, {27: 26, 33: 32, 39: 38, 47: 46, 82: 83}),
+])
+def test_e24_and_e12_keep_historical_values_where_the_e96_rule_differs(name, published, n, kept):
+    # Source: IEC 60063:2015 (from memory): E48 and finer are round(10^(i/n)) to three figures, but E24 and
+    # coarser keep their historical values, which differ from that rule (rounded to two figures) at exactly
+    # 2.7, 3.0, 3.3, 3.6, 3.9, 4.3, 4.7 and 8.2 (E24), and at the E12 members of that list.
+    rule = [round(10 * 10 ** (i / n)) for i in range(n)]
+    differ = {p: r for p, r in zip(published, rule) if p != r}
+    assert differ == kept
+    assert [round(v * 10) for v in realize.SERIES[name]] == published  # the module keeps the published values
+
+
 @pytest.mark.parametrize("coarse,fine", [("E6", "E12"), ("E12", "E24")])
 def test_coarser_series_are_every_second_value(coarse, fine):
     # Source: IEC 60063 structure, each series is every second value of the next finer one (from memory).
@@ -302,6 +316,26 @@ def test_load_lowers_h0_and_source_adds_to_r():
     assert real.to_dict()["error"]["h0_db"] == pytest.approx(20 * math.log10(10e3 / (10e3 + rt)), abs=1e-9)
 
 
+def test_what_source_and_load_do_is_shown_with_the_handbook_figures():
+    # Source: circuit theory, series RLC w0 = 1/sqrt(LC), Q = (1/R) sqrt(L/C), H0 = 1 open; the source
+    # impedance is in series with R; a load RL across C gives H0 = RL/(RL + R) at DC (voltage divider).
+    d = design.lowpass(9000.0, 384000.0, q=0.8)
+    rs, rl = 600.0, 10e3
+    st = realize.realise_series_rlc(d, source_ohm=rs, load_ohm=rl).to_dict()["stages"][0]
+    r, l, c = st["r_ohm"], st["l_henry"], st["c_farad"]
+    w0 = 1 / math.sqrt(l * c)
+    bare, no_load, no_source = st["without_source_and_load"], st["without_load"], st["without_source"]
+    assert bare["f0_hz"] == pytest.approx(w0 / (2 * math.pi), rel=1e-12)
+    assert bare["q"] == pytest.approx(math.sqrt(l / c) / r, rel=1e-12) and bare["h0_db"] == 0.0
+    assert no_load["f0_hz"] == pytest.approx(w0 / (2 * math.pi), rel=1e-12)
+    assert no_load["q"] == pytest.approx(math.sqrt(l / c) / (r + rs), rel=1e-12)
+    assert no_source["h0_db"] == pytest.approx(20 * math.log10(rl / (rl + r)), abs=1e-12)
+    assert st["r_total_ohm"] == r + rs
+    # The load changes Q and H0, and the source lowers Q, by amounts a technician would notice here.
+    assert abs(st["achieved"]["q"] / no_load["q"] - 1) > 0.005 and st["achieved"]["h0_db"] < -0.5
+    assert bare["q"] > 3 * st["achieved"]["q"]
+
+
 def test_impossible_load_is_refused_with_the_values():
     d = design.lowpass(9000.0, 384000.0, q=2.0)
     with pytest.raises(BadParameter, match=r"impedance-ohm=600.0.*load-ohm=100.0"):
@@ -351,6 +385,26 @@ def test_monte_carlo_is_seeded_and_zero_tolerance_is_exact():
         realize.monte_carlo(real, tolerance_pct=80)
 
 
+def test_tolerance_classes_follow_irwin_hall_and_widen_with_the_class():
+    # Source: as above, ln f0 = -(1/2) sum ln(1 + t u_i) for the four parts of a Sallen-Key stage, so to first
+    # order the 95th percentile of f0 is f0n exp(-(t/2)(2 s5 - 4)) with s5 the Irwin-Hall 5th percentile
+    # (from memory); the classes share their random numbers, so the spread grows with t.
+    real = realize.realise_sallen_key(design.lowpass(9000.0, 384000.0, q=0.7071))
+    classes = realize.tolerance_classes(real, trials=15000, seed=11)
+    assert [c["tolerance_pct"] for c in classes] == [1.0, 2.0, 5.0, 10.0]
+    s5 = optimize.brentq(lambda x: (x ** 4 - 4 * (x - 1) ** 4) / 24 - 0.05, 1.0, 2.0)
+    st = real.stages[0]
+    for c in classes[:2]:
+        t = c["tolerance_pct"] / 100
+        expect = st.f0_hz * math.exp(-(t / 2) * (2 * s5 - 4)) / 9000.0 * 100 - 100
+        assert c["stages"][0]["f0_pct"]["p95"] == pytest.approx(expect, abs=0.01 * c["tolerance_pct"])
+    widths = [c["stages"][0]["f0_pct"]["p95"] - c["stages"][0]["f0_pct"]["p5"] for c in classes]
+    assert all(a < b for a, b in zip(widths, widths[1:]))
+    assert widths[3] / widths[0] == pytest.approx(10.0, rel=0.1)  # first order in t (small-tolerance limit)
+    dev = [c["max_deviation_db"]["p95"] for c in classes]
+    assert all(a < b for a, b in zip(dev, dev[1:]))
+
+
 # ---------------------------------------------------------------------------
 # Coefficients and fixed point
 # ---------------------------------------------------------------------------
@@ -384,6 +438,19 @@ def test_pole_radius_after_rounding_is_sqrt_a2(f0, q):
         if r.fits:
             a2 = r.integers[0, 4] / 2 ** r.format.frac_bits if r.format.fixed else r.sos[0, 5]
             assert r.pole_radius[0] == pytest.approx(math.sqrt(a2), rel=1e-12)
+
+
+@pytest.mark.parametrize("f0,q,rate", [(9000.0, 0.8, 44100.0), (2000.0, 0.9, 48000.0), (12000.0, 0.7071, 48000.0)])
+def test_integer_coefficients_are_the_cookbook_coefficients_rounded(f0, q, rate):
+    # Source: W3C Audio EQ Cookbook LPF (the prewarped bilinear transform), each coefficient times 2^F rounded
+    # to the nearest integer: the words a DSP is loaded with.
+    ref = cookbook_lowpass(f0, q, rate)
+    c = realize.quantise(design.lowpass(f0, rate, q=q))
+    for key, frac in (("q1_15", 15), ("q1_31", 31), ("q2_14", 14), ("q2_30", 30)):
+        r = c.result(key)
+        if r.fits:
+            assert r.integers[0].tolist() == [int(v) for v in np.rint(ref * 2 ** frac)], key
+    assert c.result("q2_14").fits and c.result("q2_30").fits
 
 
 def integer_df1(ints, frac_bits, word_bits, x):
@@ -489,6 +556,18 @@ def test_low_f0_over_rate_is_flagged_unsafe_and_a_32_bit_word_is_not(f0, rate, k
     assert c.recommended in ("q2_30", "single", "double")
 
 
+@pytest.mark.parametrize("sections,gain_db", [([(9000.0, 0.8)], 6.0), ([(3000.0, 2.0), (8000.0, 0.6)], 0.0),
+                                            ([(8000.0, 0.6), (3000.0, 2.0)], 0.0)])
+def test_headroom_is_the_peak_of_every_partial_cascade(sections, gain_db):
+    # Reference library: scipy.signal.sosfreqz of the first k sections, k = 1 .. n, on a dense grid.
+    d = design.from_sections(sections, 48000.0, gain_db=gain_db)
+    got = realize.headroom(d.sos, 48000.0)
+    peaks = [np.max(20 * np.log10(np.abs(signal.sosfreqz(d.sos[:k], worN=2 ** 16, fs=48000.0)[1])))
+             for k in range(1, len(d.sos) + 1)]
+    assert got["peak_gain_db"] == pytest.approx(max(peaks), abs=2e-3)
+    assert got["after_section"] == int(np.argmax(peaks)) + 1
+
+
 def test_c_header_parses_and_matches_the_formats():
     c = realize.quantise(design.lowpass(2000.0, 48000.0, order=4))
     text = realize.c_header(c, "hiss-lp")
@@ -520,6 +599,8 @@ def test_cli_analog_json_keys(capsys, target, parts):
     st = out["stages"][0]
     assert parts <= set(st) and {"f0_hz", "q", "h0_db"} <= set(st["achieved"])
     assert out["tolerance"]["stages"][0]["f0_hz"]["p5"] < 9000 * 1.05
+    assert [c["tolerance_pct"] for c in out["tolerance_classes"]] == [1.0, 2.0, 5.0, 10.0]
+    assert {"f0_hz", "q", "h0_db"} <= set(st["without_source_and_load"]) and st["r_total_ohm"] > 0
     assert "electrical safety" in out["caution"] and "local codes" in out["caution"]
 
 
@@ -557,6 +638,13 @@ def test_cli_preset_and_plan(capsys, tmp_path):
     (["--preset", "no-such", "--as", "series-rlc"], "preset='no-such'"),
     (["--plan", "/nonexistent/plan.toml", "--as", "series-rlc"], "/nonexistent/plan.toml"),
     (["--f0", "9000", "--as", "coefficients", "--header", "/nonexistent/dir/x.h"], "does not exist"),
+    (["--f0", "9000", "--as", "series-rlc", "--impedance-ohm", "1e12"], "impedance-ohm=1000000000000.0"),
+    (["--f0", "9000", "--as", "sallen-key", "--impedance-ohm", "0.001"], "impedance-ohm=0.001"),
+    (["--f0", "9000", "--as", "sallen-key", "--source-ohm", "-600"], "source-ohm=-600.0"),
+    (["--f0", "0.5", "--as", "series-rlc"], "f0=0.5"),
+    (["--f0", "9000", "--as", "series-rlc", "--plot", "x.txt"], "plot='x.txt'"),
+    (["--f0", "9000", "--as", "coefficients", "--header", "x.c"], "header='x.c'"),
+    (["--f0", "9000"], "give a target with --as"),
 ])
 def test_cli_bad_input_is_one_line_and_exit_2(capsys, argv, needle):
     assert main(["realize", *argv]) == 2
@@ -607,3 +695,12 @@ def test_cli_plot_writes_a_png(capsys, tmp_path, argv):
     assert main(["realize", "--f0", "6000", *argv, "--plot", str(path)]) == 0
     assert "plot written" in capsys.readouterr().out
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and os.listdir(tmp_path) == ["r.png"]
+
+
+def test_cli_text_shows_source_load_and_tolerance_classes(capsys):
+    assert main(["realize", "--f0", "9000", "--q", "0.8", "--as", "series-rlc", "--source-ohm", "600",
+                 "--load-ohm", "10000", "--trials", "200"]) == 0
+    out = capsys.readouterr().out
+    assert "source 600 Ω adds to R" in out and "load 10 kΩ across C" in out and "without source and load" in out
+    assert sum(line.lstrip().startswith("±") for line in out.splitlines()) == 4
+    assert out.rstrip().endswith("defer to local codes and licensed practice.")

@@ -33,7 +33,8 @@ def add_parser(sub) -> None:
     a.add_argument("--load-ohm", type=float, metavar="OHM",
                    help="load across the last capacitor (series-rlc); default: open")
     a.add_argument("--tolerance-pct", type=float, default=5.0, metavar="PCT",
-                   help="tolerance of resistors and capacitors for the Monte Carlo, percent (default 5)")
+                   help="tolerance of resistors and capacitors for the Monte Carlo, percent (default 5); the "
+                        "1, 2, 5 and 10 %% classes are also compared side by side")
     a.add_argument("--inductor-tolerance-pct", type=float, default=10.0, metavar="PCT",
                    help="tolerance of inductors, percent (default 10)")
     a.add_argument("--trials", type=int, default=2000, metavar="N", help="Monte Carlo builds (default 2000; 0: none)")
@@ -77,6 +78,8 @@ def _check(args):
     from audition.errors import BadParameter
     from audition.realize import TARGETS
 
+    if args.target is None:
+        raise BadParameter(f"give a target with --as: {', '.join(TARGETS)}")
     if args.target not in TARGETS:
         raise BadParameter(f"as={args.target!r}: allowed targets are {', '.join(TARGETS)}")
     if args.header and args.target != "coefficients":
@@ -89,11 +92,13 @@ def _check(args):
             raise BadParameter("--source-ohm applies to the analog targets, not to coefficients")
     if args.trials < 0:
         raise BadParameter(f"trials={args.trials!r}: must be 0 (no Monte Carlo) or a positive integer")
-    for path, ext in ((args.header, ".h"), (args.plot, ".png")):
+    for opt, path, ext in (("header", args.header, ".h"), ("plot", args.plot, ".png")):
         if path:
             folder = os.path.dirname(os.path.abspath(path))
             if os.path.isdir(path):
                 raise BadParameter(f"{path!r} is a folder: give a file name ending in {ext}")
+            if not path.lower().endswith(ext):
+                raise BadParameter(f"{opt}={path!r}: give a file name ending in {ext} (the file is written as {ext})")
             if not os.path.isdir(folder):
                 raise BadParameter(f"{path!r}: folder {folder!r} does not exist")
 
@@ -122,7 +127,7 @@ _PART_UNITS = (("_ohm", "Ω"), ("_henry", "H"), ("_farad", "F"))
 def _parts_text(stage: dict) -> str:
     out = []
     for k, v in stage.items():
-        if k in ("source_ohm", "load_ohm"):
+        if k in ("source_ohm", "load_ohm", "r_total_ohm"):
             continue
         for suffix, unit in _PART_UNITS:
             if k.endswith(suffix) and isinstance(v, (int, float)):
@@ -130,8 +135,30 @@ def _parts_text(stage: dict) -> str:
     return "  ".join(out)
 
 
+def _figs(b: dict) -> str:
+    return f"f0 {b['f0_hz']:,.1f} Hz" + ("" if b["q"] is None else f", Q {b['q']:.4f}") + f", H0 {b['h0_db']:+.2f} dB"
+
+
+def _source_load_lines(s: dict) -> list[str]:
+    """What the source and the load do to one stage: the same parts with each taken away."""
+    key = "r1_ohm" if "r1_ohm" in s else "r_ohm"
+    name = key[: -len("_ohm")].upper()
+    out = []
+    if s["source_ohm"]:
+        out.append(f"source {eng(s['source_ohm'], 'Ω')} adds to {name}: {eng(s[key], 'Ω')} + "
+                   f"{eng(s['source_ohm'], 'Ω')} = {eng(s['r_total_ohm'], 'Ω')} in series; without it: "
+                   + _figs(s["without_source"]))
+    if s["load_ohm"] is not None:
+        out.append(f"load {eng(s['load_ohm'], 'Ω')} across C: H0 {s['achieved']['h0_db']:+.2f} dB; without it: "
+                   + _figs(s["without_load"]))
+    if s["source_ohm"] and s["load_ohm"] is not None:
+        out.append("without source and load: " + _figs(s["without_source_and_load"]))
+    return out
+
+
 def _pct(v):
-    return "—" if v is None else f"{v:+.2f} %"
+    # Round first so that a tiny negative error does not print as "-0.00 %".
+    return "—" if v is None else f"{round(v, 2) + 0.0:+.2f} %"
 
 
 def _q(v):
@@ -162,6 +189,7 @@ def format_analog(r: dict) -> str:
         qtext = "first order" if st["q"] is None else f"Q {_q(sa['q'])} (target {_q(st['q'])}, {_pct(se['q_pct'])})"
         lines.append(f"    f0 {sa['f0_hz']:>10,.1f} Hz (target {st['f0_hz']:,.1f}, {_pct(se['f0_pct'])})   "
                      f"{qtext}   H0 {sa['h0_db']:+.2f} dB ({se['h0_db']:+.2f} dB)")
+        lines += ["    " + t for t in _source_load_lines(s)]
         ne = s["nearest_of_each"]["error"]
         lines.append(f"    nearest value of each part instead: {_parts_text(s['nearest_of_each']['parts'])}  "
                      f"-> f0 {_pct(ne['f0_pct'])}" + ("" if st["q"] is None else f", Q {_pct(ne['q_pct'])}"))
@@ -187,6 +215,22 @@ def format_analog(r: dict) -> str:
                      + (f", ±{tol['inductor_tolerance_pct']:g} % (L)" if r["as"] == "series-rlc" else "")
                      + f", {tol['trials']} builds (seed {tol['seed']}, uniform): worst deviation 50th "
                        f"{md['p50']:.2f} dB, 95th percentile {md['p95']:.2f} dB")
+    classes = r.get("tolerance_classes")
+    if classes:
+        lines.append("spread by tolerance class: error against the target, 5th .. 95th percentile"
+                     + (" (lowest and highest over the stages)" if len(classes[0]["stages"]) > 1 else "")
+                     + (f"; L stays ±{classes[0]['inductor_tolerance_pct']:g} %" if r["as"] == "series-rlc" else "")
+                     + "; the same builds scaled")
+        for c in classes:
+            f5 = min(st["f0_pct"]["p5"] for st in c["stages"])
+            f95 = max(st["f0_pct"]["p95"] for st in c["stages"])
+            qs = [st["q_pct"] for st in c["stages"] if st["q_pct"]]
+            txt = f"  ±{c['tolerance_pct']:>4g} % R, C:  f0 {f5:+6.2f} .. {f95:+6.2f} %"
+            if qs:
+                txt += f"   Q {min(q['p5'] for q in qs):+6.2f} .. {max(q['p95'] for q in qs):+6.2f} %"
+            md = c["max_deviation_db"]
+            txt += f"   worst deviation 50th {md['p50']:.2f} dB, 95th {md['p95']:.2f} dB"
+            lines.append(txt)
     for n in r["notes"]:
         lines.append(f"note: {n}")
     lines.append(r["caution"])
@@ -226,10 +270,17 @@ def format_coefficients(r: dict) -> str:
             for i, s in enumerate(f["sections"], 1):
                 lines.append(f"  {f['label']:<6} section {i}: " + " ".join(str(v) for v in s["b_int"] + s["a_int"]))
     lines.append("fixed-point arithmetic assumed: " + r["arithmetic"])
+    hr = r["headroom"]
+    if hr["peak_gain_db"] > 0.005:
+        lines.append(f"headroom: the gain up to section {hr['after_section']} peaks at {hr['peak_gain_db']:+.2f} dB "
+                     f"at {hr['peak_hz']:,.0f} Hz (sine gain); in fixed point keep the input's peak below "
+                     f"{-hr['peak_gain_db']:.2f} dB re full scale (peak, not rms) or that section's output saturates")
+    else:
+        lines.append(f"headroom: no section output rises above the input (peak gain {hr['peak_gain_db']:+.2f} dB)")
     rec = r["recommended"]
     lines.append(f"recommended: {r['formats'][rec]['label']} (shortest safe word)" if rec else
-                 "no format is safe for this design at this rate: raise the rate's f0/rate or use a structure "
-                 "less sensitive to rounding")
+                 "no format is safe for this design at this rate: a higher f0/rate (a lower sample rate) or a "
+                 "structure less sensitive to rounding is needed")
     return "\n".join(lines)
 
 
@@ -308,6 +359,10 @@ def run(args) -> int:
                                   seed=args.seed)
     report = real.to_dict()
     report["tolerance"] = None if tol is None else tol.to_dict()
+    report["tolerance_classes"] = None
+    if args.trials:
+        report["tolerance_classes"] = realize.tolerance_classes(
+            real, inductor_tolerance_pct=args.inductor_tolerance_pct, trials=args.trials, seed=args.seed)
     if args.plot:
         from audition.plots.realize import plot_realisation
 

@@ -26,6 +26,11 @@ def _parts(stage) -> str:
     return ", ".join(out)
 
 
+def _pct(v: float) -> str:
+    # Round first so that a tiny negative error does not print as "-0.00 %".
+    return f"{round(v, 2) + 0.0:+.2f} %"
+
+
 def _db(h):
     return 20 * np.log10(np.maximum(np.abs(h), 1e-12))
 
@@ -63,8 +68,22 @@ def plot_realisation(real, tol, path) -> None:
     ax1.set_ylabel("magnitude (dB)")
     ax1.grid(True, which="both", alpha=0.3)
     ax1.legend(loc="lower left", fontsize=8.5)
-    text = "\n".join(f"stage {i}: {_parts(st)}" for i, st in enumerate(real.stages, 1))
-    ax1.text(0.01, 0.80, text, transform=ax1.transAxes, ha="left", va="top", fontsize=8.5,
+    rows = []
+    for i, st in enumerate(real.stages, 1):
+        err = st.errors()
+        fig_txt = f"f0 {st.f0_hz:,.0f} Hz ({_pct(err['f0_pct'])})"
+        if st.q is not None:
+            fig_txt += f", Q {st.q:.3f} ({_pct(err['q_pct'])})"
+        rows.append(f"stage {i}: {_parts(st)}  →  {fig_txt}")
+    ends = []
+    if real.source_ohm:
+        ends.append(f"source {_eng(real.source_ohm, 'Ω')} (adds to the first R)")
+    ends.append("load " + ("open" if real.load_ohm is None else _eng(real.load_ohm, "Ω")
+                           + (" (op-amp output drives it)" if real.topology == "sallen-key" else " across the last C")))
+    rows.append(", ".join(ends) + f";  H0 {real.h0_db + 0.0:+.2f} dB")
+    for s in real.omitted:
+        rows.append(f"not realised here: the {s.kind} at {s.f0_hz:,.0f} Hz (build it apart or as coefficients)")
+    ax1.text(0.01, 0.80, "\n".join(rows), transform=ax1.transAxes, ha="left", va="top", fontsize=8.5,
              bbox=dict(boxstyle="round", fc="white", ec="0.7", alpha=0.9))
     d = real.design
     name = {"series-rlc": "series RLC", "sallen-key": "unity-gain Sallen–Key"}[real.topology]
@@ -82,9 +101,12 @@ def plot_realisation(real, tol, path) -> None:
     dev_db, dev_hz = real.max_deviation()
     ax2.plot([dev_hz], [dev_db], "o", color="C3")
     left = dev_hz > np.sqrt(f[0] * f[-1])
+    # The label sits in the panel's top corner away from the point, clear of the curve and the band.
     ax2.annotate(f"worst in audio band {dev_db:+.2f} dB at {dev_hz:,.0f} Hz", (dev_hz, dev_db),
-                 xytext=(-230 if left else 30, 14),
-                 textcoords="offset points", color="C3", fontsize=9, arrowprops=dict(arrowstyle="->", color="C3"))
+                 xytext=(0.03 if not left else 0.97, 0.92), textcoords="axes fraction",
+                 ha="left" if not left else "right", va="top", color="C3", fontsize=9,
+                 bbox=dict(boxstyle="round", fc="white", ec="C3", alpha=0.9),
+                 arrowprops=dict(arrowstyle="->", color="C3"))
     band = (f >= ANALOG_BAND_HZ[0]) & (f <= ANALOG_BAND_HZ[1])
     span = float(np.max(np.abs((hr - ht)[band])))
     if tol is not None:
@@ -133,15 +155,19 @@ def plot_coefficients(coeffs, path) -> None:
         ax2.loglog(fb, np.clip(np.nan_to_num(dev, nan=1e3, posinf=1e3), 1e-12, 1e3), color=color, ls=ls, lw=1.4,
                    label=f"{r.format.label}: worst {worst}")
     ax1.axvline(d.f0_hz, color="C1", lw=0.8, ls=":")
+    # Left of the line, below 0 dB: the low-pass curves fall to the right of f0 and would cross the label.
+    ax1.annotate(f"f0 {d.f0_hz:,.0f} Hz", (d.f0_hz, 0), xytext=(-4, -16), textcoords="offset points", color="C1",
+                 fontsize=8.5, ha="right")
     ax1.set_ylim(max(-100.0, float(ref.min()) - 5), max(3.0, float(ref.max()) + 3))
     ax1.set_ylabel("magnitude (dB)")
     ax1.set_xlabel("frequency (Hz)")
     ax1.set_xlim(f[0], f[-1])
     ax1.grid(True, which="both", alpha=0.3)
     ax1.legend(loc="lower left", fontsize=8.5)
-    what = f"f0 {d.f0_hz:,.0f} Hz, " + (f"Q {d.q:.3g}" if d.q else f"order {d.order}"
-                                        + (f" {d.alignment}" if d.alignment else ""))
-    ax1.set_title(f"coefficients of {what} at {d.rate_hz:,.0f} Hz ({d.method}): rounding to each format",
+    what = (f"f0 {d.f0_hz:,.0f} Hz, " + (f"Q {d.q:.3g}" if d.q else f"order {d.order}"
+                                         + (f" {d.alignment}" if d.alignment else ""))
+            + (f" + high-pass {d.highpass_hz:,.0f} Hz" if d.highpass_hz else ""))
+    ax1.set_title(f"coefficients rounded to each format\n{what} at {d.rate_hz:,.0f} Hz ({d.method} method)",
                   fontsize=10)
     ax2.set_ylabel("|rounded − double| (dB)")
     ax2.set_xlabel("frequency (Hz)")
