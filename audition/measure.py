@@ -76,6 +76,9 @@ class Prediction:
             "response_db": dict(self.response_db),
             "noise_before_dbfs": dict(self.noise_before_dbfs),
             "noise_after_dbfs": dict(self.noise_after_dbfs),
+            "noise_reduction_db": {k: (None if not (math.isfinite(b) and math.isfinite(self.noise_after_dbfs[k]))
+                                       else b - self.noise_after_dbfs[k])
+                                   for k, b in self.noise_before_dbfs.items()},
         }
 
 
@@ -225,15 +228,21 @@ class Measured:
         Share of the programme's power above ``treble_from_hz`` taken away, dB
         (module notes), measured on the programme estimates (noise subtracted) of
         input and output.
+    snr_gain_db : dict
+        Weighting -> measured gain in weighted programme-to-noise ratio, dB: the
+        programme estimates' weighted power ratio (output over input) minus the
+        noise reference's, the measured counterpart of :attr:`Prediction.snr_gain_db`.
     """
 
     noise_reduction_db: dict
     noise_after_dbfs: dict
     treble_loss_db: float
     treble_from_hz: float
+    snr_gain_db: dict | None = None
 
     def to_dict(self) -> dict:
         return {
+            "snr_gain_db": dict(self.snr_gain_db or {}),
             "noise_reduction_db": dict(self.noise_reduction_db),
             "noise_after_dbfs": dict(self.noise_after_dbfs),
             "treble_loss_db": self.treble_loss_db,
@@ -251,15 +260,87 @@ def measure(freqs_hz, noise_in_psd, noise_out_psd, programme_in_psd, programme_o
     from audition.weighting import WEIGHTINGS, power_gain
 
     weightings = tuple(weightings or WEIGHTINGS)
-    reduction, after = {}, {}
+    reduction, after, gain = {}, {}, {}
     for name in weightings:
         w = power_gain(name, freqs_hz)
         p_in, p_out = band_power(freqs_hz, noise_in_psd, w), band_power(freqs_hz, noise_out_psd, w)
         after[name] = power_dbfs(p_out)
         reduction[name] = 10.0 * math.log10(p_in / p_out) if p_in > 0 and p_out > 0 else None
+        s_in, s_out = band_power(freqs_hz, programme_in_psd, w), band_power(freqs_hz, programme_out_psd, w)
+        # (S_out/N_out)/(S_in/N_in) = (S_out/S_in)·(N_in/N_out)
+        gain[name] = (10.0 * math.log10(s_out / s_in) + reduction[name]
+                      if s_in > 0 and s_out > 0 and reduction[name] is not None else None)
     # The render's power response seen through the two programme estimates, bin by bin.
     p_in = np.asarray(programme_in_psd, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(p_in > 0, np.asarray(programme_out_psd, dtype=float) / p_in, 1.0)
     loss = float(treble_loss_db(ratio[None, :], freqs_hz, p_in, treble_from_hz)[0])
-    return Measured(reduction, after, loss, float(treble_from_hz))
+    return Measured(reduction, after, loss, float(treble_from_hz), gain)
+
+
+#: Width of the sliding band over which the programme estimate is averaged before
+#: its floor at zero, octaves (1/3 octave: the survey's own band width).
+PROGRAMME_SMOOTHING_OCTAVES = 1.0 / 3.0
+
+
+def programme_estimate(freqs_hz, outside_psd, noise_psd,
+                       smoothing_octaves: float = PROGRAMME_SMOOTHING_OCTAVES) -> np.ndarray:
+    """The programme's PSD alone, from the PSD outside the noise reference and the noise PSD.
+
+    Parameters
+    ----------
+    freqs_hz : ndarray
+        Uniform bin frequencies 0 .. rate/2.
+    outside_psd, noise_psd : ndarray
+        Welch PSDs (units²/Hz) of the programme segments (programme plus hiss) and
+        of the noise reference.
+    smoothing_octaves : float
+        Width of the sliding band, octaves (default 1/3).
+
+    Returns
+    -------
+    ndarray
+        Non-negative programme PSD on ``freqs_hz``.
+
+    Notes
+    -----
+    Powers of uncorrelated signals add, so D(f) = S_outside(f) - S_noise(f) is an
+    unbiased estimate of the programme's PSD; but bin by bin it scatters by
+    about 1/sqrt(K) of the hiss level (K the number of Welch segments averaged,
+    often only ten to twenty in a noise reference of a second or two), and
+    flooring each bin at zero keeps the upward half of that scatter: where the
+    programme has sunk into the hiss, a per-bin floored estimate reads about
+    0.4/sqrt(K) of the hiss level (some 10 dB under the hiss) instead of the
+    programme's true, far lower, level, and the planner then sees treble that is
+    not there. Here D is first averaged over a sliding band of
+    ``smoothing_octaves`` around each bin (M bins: the scatter falls by about
+    sqrt(M), some 20 times at 10 kHz), floored at zero only then, and spread
+    back over the bins in the shape of the outside PSD:
+
+    .. math:: \\hat S_p(f) = \\max(\\bar D(f), 0)\\,\\frac{S_{outside}(f)}{\\bar S_{outside}(f)}
+
+    (bars: the sliding-band means). Where the programme dominates, the shape
+    factor restores its harmonic lines (and the estimate equals D bin by bin
+    when the band holds one bin, at low frequencies); where the hiss dominates,
+    the factor is one plus zero-mean scatter. Our own estimator (no source).
+    """
+    f = np.asarray(freqs_hz, dtype=float)
+    o = np.asarray(outside_psd, dtype=float)
+    n = np.asarray(noise_psd, dtype=float)
+    if not (f.shape == o.shape == n.shape) or f.ndim != 1 or f.size < 2:
+        raise BadParameter(f"programme_estimate: {f.shape!r} frequencies, {o.shape!r} outside and {n.shape!r} noise")
+    if not (smoothing_octaves >= 0 and math.isfinite(smoothing_octaves)):
+        raise BadParameter(f"smoothing_octaves={smoothing_octaves!r}: must be a non-negative number of octaves")
+    half = 2.0 ** (smoothing_octaves / 2.0)
+    df = f[1] - f[0]
+    # Window of bin k: bins whose centres lie within [f_k / half, f_k * half], at least bin k itself.
+    lo = np.minimum(np.searchsorted(f, f / half - 1e-9 * df, side="left"), np.arange(f.size))
+    hi = np.maximum(np.searchsorted(f, f * half + 1e-9 * df, side="right"), np.arange(f.size) + 1)
+    count = hi - lo
+    d_cum = np.concatenate([[0.0], np.cumsum(o - n)])
+    o_cum = np.concatenate([[0.0], np.cumsum(o)])
+    d_bar = (d_cum[hi] - d_cum[lo]) / count
+    o_bar = (o_cum[hi] - o_cum[lo]) / count
+    with np.errstate(divide="ignore", invalid="ignore"):
+        shape = np.where(o_bar > 0, o / o_bar, 0.0)
+    return np.maximum(d_bar, 0.0) * shape

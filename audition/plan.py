@@ -13,6 +13,7 @@ lower order), because a technician would rather keep what cannot be put back.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -123,10 +124,94 @@ def candidate_designs(rate_hz: float, orders=DEFAULT_ORDERS, method: str = "bili
                          if not (a == "linkwitz-riley" and order % 2)]
             for spec in specs:
                 try:
-                    out.append(design.lowpass(float(f0), rate_hz, method=method, highpass_hz=highpass_hz, **spec))
+                    if spec.get("alignment") == "bessel":
+                        out.append(_bessel(float(f0), rate_hz, order, method, highpass_hz))
+                    else:
+                        out.append(design.lowpass(float(f0), rate_hz, method=method, highpass_hz=highpass_hz,
+                                                  **spec))
                 except BadParameter:
                     continue  # e.g. a Bessel section pushed above Nyquist at the top of the grid
     return out
+
+
+def _bessel(f0_hz, rate_hz, order, method, highpass_hz):
+    """``design.lowpass(f0, rate, order=order, alignment="bessel", ...)``, with the Bessel table computed once.
+
+    scipy's besselap takes milliseconds per call and the grid asks for the same
+    table at every f0; the sections are the table's (factor × f0, Q) pairs, exactly
+    as :func:`audition.design.alignment_sections` makes them (tests compare the two).
+    """
+    import dataclasses
+
+    from audition import design
+
+    if highpass_hz is not None and highpass_hz >= f0_hz:
+        raise BadParameter(f"highpass={highpass_hz!r} Hz must lie below the low-pass f0={f0_hz!r} Hz")
+    pairs = [(f0_hz * factor, q) for factor, q in _bessel_table(order)]
+    d = design.from_sections(pairs, rate_hz, method=method, highpass_hz=highpass_hz)
+    return dataclasses.replace(d, f0_hz=float(f0_hz), q=None, order=int(order), alignment="bessel")
+
+
+@functools.lru_cache(maxsize=None)
+def _bessel_table(order: int) -> tuple:
+    from audition import design
+
+    return tuple(design.bessel_sections(order))
+
+
+def power_responses(designs, freqs_hz) -> np.ndarray:
+    r"""|H(e^{jω})|² of every design's sections at ``freqs_hz``, as one (n_designs, n_bins) array.
+
+    Notes
+    -----
+    For one section with b = (b0, b1, b2), |b0 + b1 e^{-jω} + b2 e^{-2jω}|² is real:
+
+    .. math:: (b_0^2 + b_1^2 + b_2^2) + 2(b_0 b_1 + b_1 b_2)\cos ω + 2 b_0 b_2 \cos 2ω
+              = (b_0 + b_1 + b_2)^2 - 4(b_0 b_1 + b_1 b_2 + 4 b_0 b_2)\,u + 16 b_0 b_2\,u^2,
+              \qquad u = \sin^2(ω/2)
+
+    and likewise the denominator with (1, a1, a2), so the power responses of all
+    candidates are products of matrix products with the three rows (1, u, u²),
+    without complex arithmetic (ω = 2π f / rate; the candidates share one rate).
+    The form in u keeps its accuracy near DC, where a rumble high-pass has its
+    zeros and poles close to z = 1 (the cos form loses digits there to cancellation).
+    """
+    freqs_hz = np.asarray(freqs_hz, dtype=float)
+    out = np.ones((len(designs), freqs_hz.size))
+    if not designs:
+        return out
+    rate = designs[0].rate_hz
+    w = 2.0 * np.pi * freqs_hz / rate
+    u = np.sin(w / 2.0) ** 2
+    basis = np.stack([np.ones_like(u), u, u * u])
+    n_sec = max(len(d.sos) for d in designs)
+    # Missing sections are the identity row [1 0 0 1 0 0].
+    sos = np.zeros((len(designs), n_sec, 6))
+    sos[:, :, 0] = sos[:, :, 3] = 1.0
+    for i, d in enumerate(designs):
+        if abs(d.rate_hz - rate) > 1e-9 * rate:
+            raise BadParameter("power_responses: the candidates must share one sample rate")
+        sos[i, :len(d.sos)] = d.sos
+    # Chunks of candidates keep the temporaries in cache. Rounding near a zero of the
+    # numerator (the bilinear zero at Nyquist) can leave a tiny negative: floor at zero.
+    for c0 in range(0, len(designs), _CHUNK):
+        part = out[c0:c0 + _CHUNK]
+        for k in range(n_sec):
+            num = _power_coefficients(sos[c0:c0 + _CHUNK, k, :3]) @ basis
+            den = _power_coefficients(sos[c0:c0 + _CHUNK, k, 3:]) @ basis
+            np.maximum(num, 0.0, out=num)
+            num /= den
+            part *= num
+    return out
+
+
+_CHUNK = 64
+
+
+def _power_coefficients(c: np.ndarray) -> np.ndarray:
+    """(n, 3) polynomial rows -> (n, 3) coefficients of (1, u, u²) in |c0 + c1 z⁻¹ + c2 z⁻²|² (see above)."""
+    c0, c1, c2 = c[:, 0], c[:, 1], c[:, 2]
+    return np.stack([(c0 + c1 + c2) ** 2, -4.0 * (c0 * c1 + c1 * c2 + 4.0 * c0 * c2), 16.0 * c0 * c2], axis=1)
 
 
 def evaluate(designs, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz):
@@ -134,9 +219,7 @@ def evaluate(designs, freqs_hz, programme_psd, noise_psd, weightings, treble_fro
     from audition.measure import gains_and_losses
 
     freqs_hz = np.asarray(freqs_hz, dtype=float)
-    h2 = np.empty((len(designs), freqs_hz.size))
-    for i, d in enumerate(designs):
-        h2[i] = np.abs(d.digital_response(freqs_hz)) ** 2
+    h2 = power_responses(designs, freqs_hz)
     gains, loss = gains_and_losses(h2, freqs_hz, programme_psd, noise_psd, weightings, treble_from_hz)
     with np.errstate(divide="ignore"):
         peak_db = 10.0 * np.log10(h2.max(axis=1))
@@ -260,16 +343,17 @@ def explain(choice, alternatives, weighting, budget_db, crossover_hz) -> str:
     d = choice.design
     where = (f"The programme sinks into the hiss above about {crossover_hz:,.0f} Hz. " if crossover_hz
              else "The programme stays above the hiss across the band. ")
-    what = (f"A cutoff of {d.f0_hz:,.0f} Hz ({choice.label}) gains {choice.snr_gain_db[weighting]:.1f} dB of "
+    what = (f"The choice, {choice.label}, gains {choice.snr_gain_db[weighting]:.1f} dB of "
             f"{weighting}-weighted SNR for {choice.treble_loss_db:.2f} dB of treble within the {budget_db:g} dB "
             f"budget; it {describe_q(d)}. ")
     step = ""
     if alternatives:
         parts = []
         for alt in alternatives:
-            parts.append(f"{alt.design.f0_hz:,.0f} Hz would give {alt.snr_gain_db[weighting]:.1f} dB for "
+            kind = "gentler" if alt.treble_loss_db < choice.treble_loss_db else "stronger"
+            parts.append(f"a {kind} {alt.label} would give {alt.snr_gain_db[weighting]:.1f} dB for "
                          f"{alt.treble_loss_db:.2f} dB of treble")
-        step = "Moving the cutoff: " + "; ".join(parts) + "."
+        step = "Instead, " + "; ".join(parts) + "."
     return (where + what + step).strip()
 
 

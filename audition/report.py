@@ -54,21 +54,136 @@ def build(title: str, sections: list[tuple[str, str]]) -> str:
 
 
 def figures_table(predicted: dict | None, measured: dict | None) -> str:
-    """Predicted against measured: SNR gain / noise reduction per weighting, and treble loss."""
+    """Predicted against measured, like with like: SNR gain and noise reduction per weighting, treble loss."""
+    pr, me = predicted or {}, measured or {}
     rows = []
-    pg = (predicted or {}).get("snr_gain_db", {})
-    mg = (measured or {}).get("noise_reduction_db", {})
-    for name in ("flat", "a", "itu468"):
-        rows.append([f"{name}-weighted SNR gain / noise reduction (dB)", _fmt(pg.get(name)), _fmt(mg.get(name))])
-    rows.append(["treble loss (dB)", _fmt((predicted or {}).get("treble_loss_db")),
-                 _fmt((measured or {}).get("treble_loss_db"))])
-    return table(["figure", "predicted", "measured"], rows)
+    for key, what in (("snr_gain_db", "SNR gain"), ("noise_reduction_db", "noise reduction")):
+        for name, label in WEIGHTING_LABELS.items():
+            rows.append([f"{what}, {label} (dB)", _fmt(pr.get(key, {}).get(name)), _fmt(me.get(key, {}).get(name))])
+    rows.append([f"treble loss above {pr.get('treble_from_hz') or me.get('treble_from_hz') or 2000:,.0f} Hz (dB)",
+                 _fmt(pr.get("treble_loss_db")), _fmt(me.get("treble_loss_db"))])
+    return table(["figure", "predicted (from the input's spectra)", "measured (input against output)"], rows)
+
+
+#: Weighting names as printed (RMS detection throughout, not the 468 quasi-peak meter).
+WEIGHTING_LABELS = {"flat": "unweighted", "a": "A-weighted (IEC 61672-1)", "itu468": "ITU-R BS.468-4 weighted, RMS"}
+
+#: Sidecar keys shown in their own sections rather than in the provenance table.
+_SHOWN_ELSEWHERE = ("design", "plan", "measured", "predicted", "survey")
 
 
 def provenance(sidecar: dict) -> str:
-    rows = [[html.escape(k), f"<code>{html.escape(json.dumps(v) if isinstance(v, (dict, list)) else str(v))}</code>"]
-            for k, v in sidecar.items() if k not in ("design", "plan", "measured", "predicted")]
+    rows = []
+    for k, v in sidecar.items():
+        if k in _SHOWN_ELSEWHERE:
+            continue
+        if isinstance(v, dict):
+            for k2, v2 in v.items():
+                rows.append([html.escape(f"{k}.{k2}"), _code(v2)])
+        else:
+            rows.append([html.escape(k), _code(v)])
     return table(["field", "value"], rows)
+
+
+def _code(v) -> str:
+    text = json.dumps(v) if isinstance(v, (dict, list)) or v is None or isinstance(v, bool) else str(v)
+    return f"<code>{html.escape(text)}</code>"
+
+
+def _filter_rows(design) -> str:
+    fig = design.figures()
+    rows = [["cutoff f0", f"{design.f0_hz:,.0f} Hz"],
+            ["order", _fmt(design.order)],
+            ["alignment / Q", html.escape(design.alignment) if design.alignment else _fmt(design.q)],
+            ["digitising method", html.escape(design.method)],
+            ["rumble high-pass", _fmt(design.highpass_hz, " Hz") if design.highpass_hz else "none"],
+            ["half-power (-3.01 dB) point", "—" if fig.minus3db_hz is None else f"{fig.minus3db_hz:,.0f} Hz"],
+            ["resonant peak", f"{fig.peak_gain_db:+.2f} dB at {fig.peak_hz:,.0f} Hz" if fig.peak_gain_db > 0.05
+             else "none (no lift above the passband)"],
+            ["step overshoot", _fmt(fig.overshoot_pct, " %")]]
+    secs = [[f"section {i + 1}: {html.escape(s.kind)}", f"f0 {s.f0_hz:,.1f} Hz" + ("" if s.q is None else
+             f", Q {s.q:.4f}")] for i, s in enumerate(design.sections)]
+    return table(["", ""], rows + secs)
+
+
+def render_page(job: dict, sidecar: dict, survey, plan, design) -> str:
+    """The HTML page of one render job (see :func:`audition.pipeline.render_job`).
+
+    Parameters
+    ----------
+    job : dict
+        What the job returned (render summary, predicted, measured, plan, warnings).
+    sidecar : dict
+        The sidecar as written, for the provenance.
+    survey : audition.spectrum.Survey or None
+    plan : audition.plan.Plan or None
+    design : audition.design.Design
+        The filter that was rendered.
+    """
+    from audition.plots.plan import report_figures
+
+    pictures = dict(report_figures(survey, plan, design, title=os.path.basename(job["input"]),
+                                   treble_from_hz=(job.get("predicted") or {}).get("treble_from_hz")))
+    sections = []
+    intro = (f"<p><b>{html.escape(job['input'])}</b> was filtered into <b>{html.escape(job['output'])}</b> "
+             f"({html.escape(job['format'])} {html.escape(job['subtype'])}, {job['rate']:g} Hz, "
+             f"{job['channels']} channel(s), {job['duration_seconds']:.2f} s). The input was only read; keep the "
+             "unprocessed transfer and this page with it.</p>")
+    warnings = job.get("warnings") or []
+    if warnings:
+        intro += "".join(f"<p class='warn'>{html.escape(w)}</p>" for w in warnings)
+    sections.append(("What was done", intro))
+    if survey is not None:
+        sv = job.get("survey") or survey.to_dict()
+        spans = ", ".join(f"{a:.2f}–{b:.2f} s" for a, b in survey.spans[:12]) or "none (separate clip)"
+        if len(survey.spans) > 12:
+            spans += f" and {len(survey.spans) - 12} more"
+        src = {"auto": "found automatically from the quietest frames", "spans": "the spans given",
+               "clip": "a separate noise clip"}[survey.noise_source]
+        conf = survey.confidence
+        rows = [["noise reference", html.escape(src)], ["noise spans", html.escape(spans)],
+                ["confidence", f"{html.escape(conf.grade)} (separation {_fmt(conf.separation_db, ' dB')}, "
+                               f"{conf.noise_seconds:.2f} s of noise)"],
+                ["hiss level, unweighted", _fmt(survey.noise_rms_dbfs, " dBFS")],
+                ["programme level (estimate), unweighted", _fmt(survey.programme_rms_dbfs, " dBFS")],
+                ["crossover (programme meets the hiss)", f"{sv['crossover_hz']:,.0f} Hz"
+                 if sv.get("crossover_hz") else "none: the programme stays above the hiss"]]
+        body = table(["", ""], rows)
+        if "spectra" in pictures:
+            body += image(pictures["spectra"], "programme and hiss spectra with the crossover and the filter")
+        body += ("<p class='note'>Levels are dBFS as 20·log10(rms): a full-scale sine reads -3.01 dBFS. "
+                 "Weightings are applied to the power spectrum (RMS detection), not with the 468 quasi-peak "
+                 "meter.</p>")
+        sections.append(("Survey: the hiss against the programme", body))
+    body = ""
+    if plan is not None:
+        body += f"<p>{html.escape(plan.explanation)}</p>"
+    body += _filter_rows(design)
+    if "response" in pictures:
+        body += image(pictures["response"], "magnitude response of the chosen filter")
+    sections.append(("The filter" + (" chosen" if plan is not None else ""), body))
+    if plan is not None:
+        body = image(pictures["tradeoff"], "trade-off between SNR gain and treble loss") if "tradeoff" in pictures \
+            else ""
+        w = plan.weighting
+        rows = []
+        for label, cand in ([("choice", plan.choice)] if plan.choice else []) + \
+                [("alternative", a) for a in plan.alternatives]:
+            rows.append([label, html.escape(cand.label), f"{cand.snr_gain_db[w]:.2f}", f"{cand.treble_loss_db:.2f}"])
+        body += table(["", "design", f"SNR gain, {w} (dB)", "treble loss (dB)"], rows)
+        body += (f"<p class='note'>{plan.searched} candidates searched; the treble-loss budget was "
+                 f"{plan.budget_db:g} dB. Treble loss counts only what the filter cuts, not what a resonant "
+                 "peak lifts.</p>")
+        sections.append(("Trade-off", body))
+    if job.get("predicted") or job.get("measured"):
+        body = figures_table(job.get("predicted"), job.get("measured"))
+        body += ("<p class='note'>Predicted from the input's surveyed spectra; measured on the same noise reference "
+                 "and programme segments of the input and the rendered output (programme = outside the noise "
+                 "reference, noise subtracted). The measured output includes its dither.</p>")
+        sections.append(("Predicted and measured", body))
+    sections.append(("Provenance (from the sidecar " + os.path.basename(job.get("sidecar") or "") + ")",
+                     provenance(sidecar)))
+    return build(f"audition: hiss filter report for {os.path.basename(job['input'])}", sections)
 
 
 def write(path, text: str) -> None:
@@ -83,6 +198,9 @@ def write(path, text: str) -> None:
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; a report is an ordinary file
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):

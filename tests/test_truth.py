@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from audition import design, plan, spectrum, synth
+from audition import design, pipeline, plan, spectrum, synth
 from audition.weighting import power_gain
 
 NPERSEG = 8192
@@ -25,9 +25,16 @@ def clip(hiss_dbfs=-50.0, top_hz=5000.0, hiss="tape", seed=3):
 
 
 @lru_cache(maxsize=None)
-def surveyed(*key):
+def raw_surveyed(*key):
+    """The streaming survey as spectrum.py makes it (programme floored bin by bin)."""
     c = clip(*key)
     return spectrum.survey_array(c.mix, c.rate_hz)
+
+
+@lru_cache(maxsize=None)
+def surveyed(*key):
+    """The survey every command plans and predicts with (audition.pipeline.survey_path refines it so)."""
+    return pipeline.refine_survey(raw_surveyed(*key))
 
 
 def welch(x, rate):
@@ -59,10 +66,6 @@ def true_effect(key, d, weighting):
 
 
 KEYS = [(-50.0, 5000.0, "tape"), (-42.0, 3500.0, "white"), (-58.0, 7000.0, "pink")]
-#: Known defect, open: where the programme sinks into loud white hiss, the survey's per-bin
-#: programme estimate (outside minus noise, floored at zero) keeps a positive bias in the treble,
-#: so the planner sees treble that is not there and chooses a gentler cutoff than truth allows.
-BIASED_ESTIMATE = pytest.mark.xfail(strict=True, reason="per-bin programme estimate biased near the floor")
 
 
 @pytest.mark.parametrize("key", KEYS)
@@ -90,8 +93,9 @@ def test_prediction_matches_filtered_stems(key, f0, q, order, alignment):
     assert p.treble_loss_db == pytest.approx(loss, abs=0.5)
 
 
+@pytest.mark.parametrize("survey_of", [raw_surveyed, surveyed], ids=["raw", "refined"])
 @pytest.mark.parametrize("key", KEYS)
-def test_crossover_within_a_third_octave_of_truth(key):
+def test_crossover_within_a_third_octave_of_truth(key, survey_of):
     # Truth: the lowest 1/3-octave band above which the programme stem's band level stays below
     # the hiss stem's (IEC 61260-1 bands, computed here from the stems' welch PSDs).
     f, pp, pn = truth_psds(*key)
@@ -102,7 +106,7 @@ def test_crossover_within_a_third_octave_of_truth(key):
         if below[i:].all():
             true_xo = c[i]
             break
-    s = surveyed(*key)
+    s = survey_of(*key)
     assert true_xo is not None and s.crossover_hz is not None
     assert abs(math.log2(s.crossover_hz / true_xo)) <= 1 / 3 + 1e-9
 
@@ -125,9 +129,28 @@ def peak_db(d, f):
     return 10 * math.log10(np.max(np.abs(d.digital_response(f)) ** 2))
 
 
-@pytest.mark.parametrize("key,budget", [
-    (k, b) if not (k == KEYS[1] and b < 2) else pytest.param(k, b, marks=BIASED_ESTIMATE)
-    for b in (0.5, 1.0, 2.0) for k in KEYS])
+@pytest.mark.parametrize("key", KEYS)
+def test_refined_programme_estimate_tracks_the_stem_where_the_floor_hides_it(key):
+    # Truth: the programme stem's power above the crossover (IEC 61260-1 1/3-octave bands of the
+    # stem's scipy welch PSD), scaled to the estimate's level over 200 Hz - 2 kHz, where the programme
+    # stands far above the hiss (the survey averages the programme's loud segments only, the stem
+    # every frame after the lead-in). The bin-by-bin floored estimate reads up to 8 dB too much
+    # there (hiss scatter kept by the floor); the band-averaged one must lie within 3 dB of truth
+    # and never further from it than the floored one.
+    f, pp, pn = truth_psds(*key)
+    raw, ref = raw_surveyed(*key), surveyed(*key)
+    c, bp = spectrum.band_levels(f, np.stack([pp, raw.programme_psd, ref.programme_psd]), 3)
+    low = (c >= 200) & (c <= 2000)
+    truth = bp[0] * (bp[1, low].sum() / bp[0, low].sum())
+    high = c >= raw.crossover_hz
+    err_raw, err_ref = (abs(10 * math.log10(b[high].sum() / truth[high].sum())) for b in (bp[1], bp[2]))
+    assert err_ref <= 3.0
+    assert err_ref <= err_raw + 1e-9
+    # Below the crossover the two agree: the refinement only acts where the hiss dominates.
+    np.testing.assert_allclose(bp[2, low], bp[1, low], rtol=0.05)
+
+
+@pytest.mark.parametrize("key,budget", [(k, b) for b in (0.5, 1.0, 2.0) for k in KEYS])
 def test_plan_choice_against_brute_force_truth(key, budget):
     # The planner issue's check: the choice's true treble loss within budget + 0.3 dB, and its true
     # weighted SNR gain within 0.5 dB of the best true gain on the same grid within the budget.
@@ -144,19 +167,40 @@ def test_plan_choice_against_brute_force_truth(key, budget):
     assert g_choice >= best - 0.5
 
 
-@BIASED_ESTIMATE
-def test_more_hiss_gives_lower_cutoff():
-    # Monotonicity: the same programme under louder hiss is cut lower.
-    f0s = []
-    for hiss in (-62.0, -52.0, -42.0):
-        s = surveyed(hiss, 5000.0, "tape", 3)
+HISS_LEVELS = (-66.0, -58.0, -50.0, -42.0)
+
+
+def test_more_hiss_never_raises_the_cutoff():
+    # Monotonicity: the same programme under louder hiss is never cut higher. Not asserted strictly,
+    # and why is checked here against brute-force truth: the issue's choice rule (best weighted SNR
+    # gain within a treble-loss budget) is blind to the hiss level, because the SNR gain
+    # (P'p/P'n)/(Pp/Pn) and the treble loss are both ratios in which the hiss level cancels. The
+    # true best design on the grid is therefore the same at every level, and only a planner that
+    # misreads the programme (the old per-bin floor read hiss as treble) moves with the level.
+    designs = plan.candidate_designs(44100, plan.DEFAULT_ORDERS)
+    allowed = None
+    f0s, best = [], []
+    for hiss in HISS_LEVELS:
+        key = (hiss, 5000.0, "tape", 3)
+        s = surveyed(*key)
         pl = plan.plan(s.freqs_hz, s.programme_psd, s.noise_psd, 44100, budget_db=1.0)
         f0s.append(pl.choice.design.f0_hz)
-    assert f0s[0] > f0s[1] > f0s[2]
+        gains, losses = brute_force_truth(key, designs, "itu468")
+        if allowed is None:
+            allowed = np.array([peak_db(d, s.freqs_hz) <= plan.DEFAULT_MAX_PEAK_DB + 1e-9 for d in designs])
+        ok = (losses <= 1.0) & allowed
+        i = int(np.flatnonzero(ok)[np.argmax(gains[ok])])
+        best.append((designs[i].f0_hz, gains[i]))
+    assert all(b <= a for a, b in zip(f0s, f0s[1:])), f0s
+    # The truth's own invariance (same best design, same gain within 0.05 dB, at every hiss level).
+    assert len({f0 for f0, _ in best}) == 1 and max(g for _, g in best) - min(g for _, g in best) < 0.05
+    # And the planner lands on it at every level.
+    assert f0s == [best[0][0]] * len(HISS_LEVELS)
 
 
-def test_looser_budget_never_worse():
-    s = surveyed(*KEYS[0])
+@pytest.mark.parametrize("key", KEYS)
+def test_looser_budget_never_worse(key):
+    s = surveyed(*key)
     gains = [plan.plan(s.freqs_hz, s.programme_psd, s.noise_psd, 44100, budget_db=b).choice.snr_gain_db["itu468"]
              for b in (0.25, 0.5, 1.0, 2.0, 4.0)]
     assert all(b >= a - 1e-12 for a, b in zip(gains, gains[1:]))
@@ -189,3 +233,21 @@ def test_hum_warns():
     s = spectrum.survey_array(c.mix + hum[:, None], c.rate_hz, noise_spans=[(0.1, 1.4)])
     assert any(w.startswith("hum") for w in plan.noise_warnings(s))
     assert not any(w.startswith("hum") for w in plan.noise_warnings(surveyed(*KEYS[0])))
+
+
+@pytest.mark.parametrize("rate,highpass", [(44100, None), (96000, 30.0)])
+def test_candidate_grid_bessel_equals_design_lowpass(rate, highpass):
+    # The planner builds its Bessel candidates from one table per order; they must be design.lowpass's.
+    fast = [d for d in plan.candidate_designs(rate, (3, 4), highpass_hz=highpass) if d.alignment == "bessel"]
+    slow = []
+    for order in (3, 4):
+        for f0 in plan.f0_grid(rate):
+            try:
+                slow.append(design.lowpass(float(f0), rate, order=order, alignment="bessel", highpass_hz=highpass))
+            except Exception:
+                continue
+    assert len(fast) == len(slow) > 0
+    for a, b in zip(fast, slow):
+        assert (a.f0_hz, a.q, a.order, a.alignment, a.highpass_hz) == (b.f0_hz, b.q, b.order, b.alignment, b.highpass_hz)
+        assert a.sections == b.sections
+        np.testing.assert_array_equal(a.sos, b.sos)

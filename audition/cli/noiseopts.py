@@ -28,19 +28,24 @@ def add_noise_options(parser: argparse.ArgumentParser) -> None:
                    help="lower edge of the treble band whose loss is counted (default 2000 Hz)")
 
 
+def noise_from_args(args):
+    """The :class:`~audition.pipeline.NoiseReference` the noise options in ``args`` describe."""
+    from audition.pipeline import NoiseReference
+
+    spans = getattr(args, "noise_span", None)
+    return NoiseReference(spans=None if not spans else tuple(tuple(s) for s in spans),
+                          clip=getattr(args, "noise_clip", None) or None,
+                          margin_db=getattr(args, "margin_db", 0.0), treble_from_hz=getattr(args, "treble_from", 2000.0))
+
+
+def gave_noise(args) -> bool:
+    """True when any noise-reference option differs from its default."""
+    return bool(getattr(args, "noise_span", None) or getattr(args, "noise_clip", None)
+                or getattr(args, "margin_db", 0.0) != 0.0 or getattr(args, "treble_from", 2000.0) != 2000.0)
+
+
 def survey_file(path, args, *, name: str | None = None):
     """Survey the file at ``path`` with the noise options in ``args`` (streaming, flat memory)."""
-    from audition import audiofile, spectrum
-    from audition.errors import BadParameter
+    from audition.pipeline import survey_path
 
-    inf = audiofile.info(path)
-    noise_blocks = noise_rate = None
-    if getattr(args, "noise_clip", None):
-        ninf = audiofile.info(args.noise_clip)
-        if ninf.channels != inf.channels:
-            raise BadParameter(f"{args.noise_clip}: the noise clip has {ninf.channels} channel(s), "
-                               f"{path} has {inf.channels}; they must agree")
-        noise_blocks, noise_rate = audiofile.blocks(args.noise_clip), ninf.rate_hz
-    return spectrum.survey_blocks(audiofile.blocks(path), inf.rate_hz, inf.channels, frames=inf.frames,
-                                  noise_spans=args.noise_span, noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
-                                  margin_db=args.margin_db, name=name or str(path))
+    return survey_path(path, noise_from_args(args))

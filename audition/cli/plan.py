@@ -47,15 +47,20 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
+def settings_from_args(args):
+    """The :class:`~audition.pipeline.PlanSettings` the planning options in ``args`` describe."""
+    from audition.pipeline import PlanSettings
+
+    return PlanSettings(budget_db=args.budget_db, weighting=args.weighting, orders=tuple(args.orders),
+                        method=args.method, max_peak_db=args.max_peak_db, highpass_hz=args.highpass)
+
+
 def make_plan(survey, args):
     """The plan for a survey with the planning options in ``args``."""
-    from audition import plan
+    from audition.cli.noiseopts import noise_from_args
+    from audition.pipeline import plan_survey
 
-    return plan.plan(survey.freqs_hz, survey.programme_psd, survey.noise_psd, survey.rate_hz,
-                     budget_db=args.budget_db, weighting=args.weighting, orders=args.orders, method=args.method,
-                     treble_from_hz=args.treble_from, crossover_hz=survey.crossover_hz, highpass_hz=args.highpass,
-                     max_peak_db=args.max_peak_db,
-                     extra_warnings=plan.noise_warnings(survey))
+    return plan_survey(survey, noise_from_args(args), settings_from_args(args))
 
 
 def save_plan(pl, survey, path, source: str, overwrite: bool = True) -> None:

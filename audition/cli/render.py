@@ -8,6 +8,7 @@ import sys
 import time
 
 from audition.cli.filteropts import add_filter_options
+from audition.cli.noiseopts import add_noise_options
 
 HELP = "filter a sound file into a new one (the original is never touched), with a JSON sidecar record"
 #: Kept equal to audition.audiofile.OUTPUT_SUBTYPES (tests check it) so the help needs no soundfile import.
@@ -24,6 +25,21 @@ def add_parser(sub) -> None:
     p.add_argument("input", metavar="IN", help="the sound file to filter (only read)")
     p.add_argument("output", metavar="OUT", help="the new file (same container as IN); OUT.json is written beside it")
     add_filter_options(p)
+    src = p.add_argument_group("where the filter comes from", "one of: the filter options above, --plan, "
+                               "--preset or --auto")
+    src.add_argument("--plan", metavar="FILE.toml", help="a plan file (from audition plan --save) or any preset file")
+    src.add_argument("--preset", metavar="NAME", help="a preset by name (see audition presets)")
+    src.add_argument("--auto", action="store_true", help="survey the input, plan the filter and render it in one "
+                     "go (the plan goes into the sidecar); --method and --highpass then apply to every candidate")
+    g = p.add_argument_group("planning (with --auto)")
+    g.add_argument("--budget-db", type=float, metavar="B",
+                   help="most programme treble (dB) the filter may take (default 1.0)")
+    g.add_argument("--weighting", choices=("flat", "a", "itu468"),
+                   help="the weighting whose SNR gain is maximised (default itu468)")
+    g.add_argument("--orders", type=_parse_orders, metavar="2,4", help="filter orders to search (default 2,4)")
+    g.add_argument("--max-peak-db", type=float, metavar="DB",
+                   help="largest resonant peak a candidate may have (default 1.5 dB)")
+    add_noise_options(p)
     out = p.add_argument_group("output")
     out.add_argument("--subtype", metavar="NAME", help=f"output encoding, one of {', '.join(SUBTYPES)} "
                      "(default: the input's)")
@@ -32,28 +48,74 @@ def add_parser(sub) -> None:
     out.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the dither (default 0): "
                      "the same inputs and seed give the same bytes")
     out.add_argument("--overwrite", action="store_true", help="replace an existing OUT and OUT.json (never IN)")
+    out.add_argument("--report", metavar="FILE.html", help="also write one self-contained HTML page (pictures inline, "
+                     "no network): survey, the filter and why, trade-off, predicted against measured, provenance; "
+                     "surveys with the automatic noise reference unless noise options are given")
     out.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
     out.add_argument("--quiet", action="store_true", help="no progress bar and no summary (warnings still shown)")
-    p.set_defaults(run=run)
+    # None marks "not given", so a filter option mixed with --plan/--preset is caught, not silently dropped.
+    p.set_defaults(run=run, method=None)
 
 
-def resolve_design(args, info):
-    """The design to render ``info``'s file with, at its rate.
+def _parse_orders(text):
+    from audition.cli.plan import parse_orders
 
-    One place that decides where the filter comes from, so a plan, a preset or
-    an automatic choice can join the explicit options here.
+    return parse_orders(text)
+
+
+PLAN_OPTIONS = ("budget_db", "weighting", "orders", "max_peak_db")
+FILTER_HINT = ("give a filter: --f0 HZ [--q Q | --order N --alignment NAME], --section F0:Q ..., "
+               "--plan FILE.toml, --preset NAME or --auto")
+
+
+def resolve_source(args, info):
+    """Where the filter comes from: ``(spec, auto)``, exactly one of them not None.
+
+    Explicit filter options become a :class:`~audition.presets.FilterSpec` named
+    "command-line"; ``--plan`` and ``--preset`` load one; ``--auto`` gives
+    :class:`~audition.pipeline.PlanSettings`.
     """
-    from audition.cli.filteropts import design_from_args
+    from audition import presets
+    from audition.cli.filteropts import design_from_args, has_filter
     from audition.errors import BadParameter
+    from audition.pipeline import PlanSettings
 
+    given = [name for name, on in (("filter options (--f0/--section)", has_filter(args)), ("--plan", args.plan),
+                                   ("--preset", args.preset), ("--auto", args.auto)) if on]
+    if len(given) > 1:
+        raise BadParameter(f"{' and '.join(given)}: give the filter one way only")
+    if not given:
+        if args.q is not None or args.alignment is not None or args.order != 2:
+            raise BadParameter("--q, --order and --alignment need --f0 HZ")
+        raise BadParameter(FILTER_HINT)
+    plan_given = [o for o in PLAN_OPTIONS if getattr(args, o) is not None]
+    if plan_given and not args.auto:
+        raise BadParameter(f"--{plan_given[0].replace('_', '-')} applies to --auto only")
+    if args.auto:
+        if args.q is not None or args.alignment is not None or args.order != 2 or args.gain_db != 0.0:
+            raise BadParameter("--auto chooses the filter: leave out --q, --order, --alignment and --gain-db "
+                               "(use --orders to choose the orders searched)")
+        return None, PlanSettings(budget_db=1.0 if args.budget_db is None else args.budget_db,
+                                  weighting=args.weighting or "itu468", orders=tuple(args.orders or (2, 4)),
+                                  method=args.method or "bilinear",
+                                  max_peak_db=1.5 if args.max_peak_db is None else args.max_peak_db,
+                                  highpass_hz=args.highpass)
+    if args.plan or args.preset:
+        mixed = [o for o, on in (("--q", args.q is not None), ("--order", args.order != 2),
+                                 ("--alignment", args.alignment is not None), ("--gain-db", args.gain_db != 0.0),
+                                 ("--highpass", args.highpass is not None), ("--method", args.method is not None))
+                 if on]
+        if mixed:
+            raise BadParameter(f"{mixed[0]}: the {'plan' if args.plan else 'preset'} gives the whole filter; "
+                               "edit the file (or a copy) instead")
+        return (presets.load(args.plan) if args.plan else presets.find(args.preset)), None
+    args.method = args.method or "bilinear"
     try:
         d = design_from_args(args, info.rate_hz)
     except BadParameter as exc:
         # name the file: the limit (Nyquist) comes from its rate
         raise BadParameter(f"{info.path!r} at {info.rate_hz:g} Hz: {exc}") from None
-    if d is None:
-        raise BadParameter("give a filter: --f0 HZ [--q Q | --order N --alignment NAME] or --section F0:Q ...")
-    return d, {}
+    return presets.FilterSpec.from_design(d, "command-line", "filter options given to audition render"), None
 
 
 class ProgressBar:
@@ -80,35 +142,10 @@ class ProgressBar:
 
 
 def report(r, d) -> dict:
-    """The JSON object of one render."""
-    dd = d.to_dict()
-    return {
-        "input": r.input,
-        "output": r.output,
-        "sidecar": r.sidecar,
-        "rate": r.rate_hz,
-        "channels": r.channels,
-        "format": r.format,
-        "subtype": r.subtype,
-        "input_subtype": r.input_subtype,
-        "frames": r.frames,
-        "duration_seconds": r.audio_seconds,
-        "f0_hz": dd["f0_hz"],
-        "q": dd["q"],
-        "order": dd["order"],
-        "alignment": dd["alignment"],
-        "highpass_hz": dd["highpass_hz"],
-        "sections": dd["sections"],
-        "method": r.method,
-        "dither": {"kind": "tpdf" if r.dither else "none", "peak_lsb": 1.0 if r.dither else 0.0,
-                   "bits": r.dither_bits, "seed": r.seed},
-        "peak_dbfs": r.peak_dbfs,
-        "clipped_samples": r.clipped_samples,
-        "trim_db": r.trim_db,
-        "input_sha256": r.input_sha256,
-        "seconds": r.seconds,
-        "realtime_factor": r.realtime_factor,
-    }
+    """The JSON object of one render (kept for callers of the old name)."""
+    from audition.pipeline import render_summary
+
+    return render_summary(r, d)
 
 
 def _clock(seconds: float) -> str:
@@ -136,30 +173,57 @@ def format_summary(j: dict) -> str:
         "beyond full scale",
         f"  took {j['seconds']:.2f} s ({j['realtime_factor']:,.0f}x real time)",
         f"  record: {j['sidecar']}" if j["sidecar"] else "  record: none",
-    ])
+    ] + _figures_lines(j))
+
+
+def _figures_lines(j: dict) -> list[str]:
+    lines = []
+    if j.get("plan") and j["plan"].get("explanation"):
+        lines += ["", "  chosen by --auto: " + j["plan"]["explanation"]]
+    pr, me = j.get("predicted"), j.get("measured")
+    if pr and me:
+        lines += ["", f"  {'':<42}{'predicted':>11}{'measured':>11}"]
+        names = {"flat": "unweighted", "a": "A-weighted", "itu468": "ITU-R 468 weighted (RMS)"}
+        for key, what in (("snr_gain_db", "SNR gain"), ("noise_reduction_db", "noise reduction")):
+            for w, label in names.items():
+                a, b = pr.get(key, {}).get(w), me.get(key, {}).get(w)
+                lines.append(f"  {what + ', ' + label:<42}{_db(a):>11}{_db(b):>11}")
+        lines.append(f"  {'treble loss above %g Hz' % pr['treble_from_hz']:<42}{_db(pr['treble_loss_db']):>11}"
+                     f"{_db(me['treble_loss_db']):>11}")
+    if j.get("report"):
+        lines += ["", f"  report: {j['report']}"]
+    return lines
+
+
+def _db(v) -> str:
+    return "-" if v is None else f"{v:.2f} dB"
 
 
 def run(args) -> int:
     from audition import audiofile
-    from audition.render import render_file
+    from audition.cli.noiseopts import gave_noise, noise_from_args
+    from audition.pipeline import render_job
 
     info = audiofile.info(args.input)
-    d, record_extra = resolve_design(args, info)
+    spec, auto = resolve_source(args, info)
+    noise = noise_from_args(args) if (gave_noise(args) or auto is not None or args.report) else None
     bar = None
     if not args.quiet and not args.json and sys.stderr.isatty() and info.seconds > PROGRESS_MIN_SECONDS:
         bar = ProgressBar("rendering")
     try:
-        r = render_file(args.input, args.output, d, subtype=args.subtype, dither=args.dither, seed=args.seed,
-                        overwrite=args.overwrite, progress=bar, record_extra=record_extra or None)
+        j = render_job(args.input, args.output, spec=spec, auto=auto, noise=noise, subtype=args.subtype,
+                       dither=args.dither, seed=args.seed, overwrite=args.overwrite, progress=bar,
+                       report_path=args.report)
     finally:
         if bar is not None:
             bar.close()
-    j = report(r, d)
-    if r.clipped_samples:
-        trim = math.ceil(r.trim_db * 10.0 + 1e-9) / 10.0
-        float_out = r.subtype in ("FLOAT", "DOUBLE")
+    for msg in j.get("warnings") or ():
+        print(f"audition render: warning: {msg}", file=sys.stderr)
+    if j["clipped_samples"]:
+        trim = math.ceil(j["trim_db"] * 10.0 + 1e-9) / 10.0
+        float_out = j["subtype"] in ("FLOAT", "DOUBLE")
         what = "kept beyond full scale (float output)" if float_out else "clipped at full scale"
-        print(f"audition render: warning: {r.clipped_samples:,} sample(s) {what}; lower the level by {trim:.1f} dB "
+        print(f"audition render: warning: {j['clipped_samples']:,} sample(s) {what}; lower the level by {trim:.1f} dB "
               f"(e.g. --gain-db {-trim:.1f}) and render again", file=sys.stderr)
     if args.json:
         print(json.dumps(j, indent=2))

@@ -1,0 +1,493 @@
+"""The main job as a library: survey, plan, render, measure and report one file.
+
+``audition render`` and the batch runner both call :func:`render_job`; nothing
+here parses arguments or prints. The chain::
+
+    survey_path ──► plan_path (auto) ──► predict ──► render_file ──► measure_render ──► report
+     (streaming)     (from spectra)      (spectra)    (streaming,     (streaming, input
+                                                       atomic)         and output paired)
+
+Errors the user can cause are :class:`~audition.errors.AuditionError`
+subclasses, and a failed job leaves nothing behind: the outputs are checked
+before anything is read, the render is atomic, and if the measurement or the
+report fails after the render, the output and its sidecar written by this job
+are removed again.
+
+Measurement after a render (issue 4, item 6)
+--------------------------------------------
+Input and output are read together, block by block, and cut into the same
+Welch segments (:class:`audition.spectrum.Segmenter`). A segment lying wholly
+inside a noise span is noise reference, one touching no span is programme;
+segments that are digital silence in the input count as neither. The measured
+noise reduction per weighting is the fall of the noise reference's weighted
+level; the measured treble loss and SNR gain use the programme estimates
+(programme segments minus noise, band-averaged and floored at zero as in
+:func:`audition.measure.programme_estimate`) of input and output. With a
+separate noise clip the clip itself is run through the same sections (from
+rest, without dither) and every non-silent segment of the file is programme.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from audition.errors import BadParameter, OutputRefused
+
+
+@dataclass(frozen=True)
+class NoiseReference:
+    """Where the hiss alone is.
+
+    Attributes
+    ----------
+    spans : tuple of (start_s, end_s), optional
+        Stretches of hiss alone in the file, seconds.
+    clip : str, optional
+        A separate noise-only recording (same rate and channel count).
+    margin_db : float
+        Crossover margin, dB (see :func:`audition.spectrum.crossover`).
+    treble_from_hz : float
+        Lower edge of the treble band whose loss is counted, Hz.
+
+    With neither ``spans`` nor ``clip`` the noise reference is found
+    automatically from the quietest frames.
+    """
+
+    spans: tuple[tuple[float, float], ...] | None = None
+    clip: str | None = None
+    margin_db: float = 0.0
+    treble_from_hz: float = 2000.0
+
+    def to_dict(self) -> dict:
+        return {"spans": None if self.spans is None else [list(s) for s in self.spans], "clip": self.clip,
+                "margin_db": float(self.margin_db), "treble_from_hz": float(self.treble_from_hz)}
+
+
+@dataclass(frozen=True)
+class PlanSettings:
+    """What an automatic choice plans with (see :func:`audition.plan.plan`)."""
+
+    budget_db: float = 1.0
+    weighting: str = "itu468"
+    orders: tuple[int, ...] = (2, 4)
+    method: str = "bilinear"
+    max_peak_db: float = 1.5
+    highpass_hz: float | None = None
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["orders"] = [int(o) for o in self.orders]
+        return d
+
+
+# ---------------------------------------------------------------------------
+# Survey and plan of a file
+# ---------------------------------------------------------------------------
+
+
+def survey_path(path, noise: NoiseReference | None = None):
+    """Survey the file at ``path`` against ``noise`` in one streaming pass (flat memory).
+
+    Returns
+    -------
+    audition.spectrum.Survey
+
+    Raises
+    ------
+    BadInputFile, BadParameter
+        An unreadable file, a bad span, a noise clip of another rate or channel count,
+        no quiet frames for the automatic search, digital silence.
+    """
+    from audition import audiofile, spectrum
+
+    noise = noise or NoiseReference()
+    inf = audiofile.info(path)
+    noise_blocks = noise_rate = None
+    if noise.clip:
+        ninf = audiofile.info(noise.clip)
+        if ninf.channels != inf.channels:
+            raise BadParameter(f"{noise.clip}: the noise clip has {ninf.channels} channel(s), "
+                               f"{path} has {inf.channels}; they must agree")
+        noise_blocks, noise_rate = audiofile.blocks(noise.clip), ninf.rate_hz
+    raw = spectrum.survey_blocks(audiofile.blocks(path), inf.rate_hz, inf.channels, frames=inf.frames,
+                                 noise_spans=None if noise.spans is None else list(noise.spans),
+                                 noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
+                                 margin_db=noise.margin_db, name=str(path))
+    return refine_survey(raw)
+
+
+def refine_survey(survey):
+    """The survey with its programme estimate band-averaged before the floor at zero, and its crossover again.
+
+    :func:`audition.spectrum.survey_blocks` floors outside-minus-noise bin by bin,
+    which reads treble that is not there wherever the programme has sunk into
+    the hiss (see :func:`audition.measure.programme_estimate`); every prediction,
+    plan, report and picture made here uses this estimate instead.
+    """
+    import dataclasses
+
+    from audition import measure, spectrum
+
+    prog = measure.programme_estimate(survey.freqs_hz, survey.outside_psd, survey.noise_psd)
+    prog.setflags(write=False)
+    c, bp = spectrum.band_levels(survey.freqs_hz, np.stack([prog, survey.noise_psd]), survey.fraction)
+    xo = spectrum.crossover(c, bp[0], bp[1], survey.margin_db)
+    return dataclasses.replace(survey, programme_psd=prog, crossover_hz=xo)
+
+
+def plan_survey(survey, noise: NoiseReference | None = None, settings: PlanSettings | None = None):
+    """The plan for a survey already made (no file access)."""
+    from audition import plan
+
+    noise = noise or NoiseReference()
+    settings = settings or PlanSettings()
+    return plan.plan(survey.freqs_hz, survey.programme_psd, survey.noise_psd, survey.rate_hz,
+                     budget_db=settings.budget_db, weighting=settings.weighting, orders=tuple(settings.orders),
+                     method=settings.method, treble_from_hz=noise.treble_from_hz, crossover_hz=survey.crossover_hz,
+                     highpass_hz=settings.highpass_hz, max_peak_db=settings.max_peak_db,
+                     extra_warnings=plan.noise_warnings(survey))
+
+
+def plan_path(path, noise: NoiseReference | None = None, settings: PlanSettings | None = None):
+    """Survey the file at ``path`` and plan a filter for it: ``(Survey, Plan)``."""
+    survey = survey_path(path, noise)
+    return survey, plan_survey(survey, noise, settings)
+
+
+# ---------------------------------------------------------------------------
+# Settings of a job (what a resumed batch compares)
+# ---------------------------------------------------------------------------
+
+
+def spec_settings(spec) -> dict:
+    """The fields of a :class:`~audition.presets.FilterSpec` that decide the filter (not where it came from)."""
+    return {"name": spec.name, "f0_hz": spec.f0_hz, "q": spec.q, "order": int(spec.order),
+            "alignment": spec.alignment, "sections": [[float(f0), q] for f0, q in spec.sections],
+            "method": spec.method, "gain_db": float(spec.gain_db), "highpass_hz": spec.highpass_hz}
+
+
+def job_settings(*, spec=None, auto: PlanSettings | None = None, noise: NoiseReference | None = None,
+                 subtype: str | None = None, dither: bool = True, seed: int = 0) -> dict:
+    """A JSON-able dict that fully describes a requested job.
+
+    Two jobs with equal settings on the same input give the same output bytes
+    (the render is deterministic for a seed), so a resumed batch can skip a file
+    whose sidecar holds equal ``"settings"``.
+    """
+    if (spec is None) == (auto is None):
+        raise BadParameter("a job needs exactly one filter source: a filter spec or automatic planning")
+    return {
+        "filter": spec_settings(spec) if spec is not None else None,
+        "auto": auto.to_dict() if auto is not None else None,
+        "noise": noise.to_dict() if noise is not None else None,
+        "subtype": subtype,
+        "dither": bool(dither),
+        "seed": int(seed),
+    }
+
+
+# ---------------------------------------------------------------------------
+# Measurement after a render
+# ---------------------------------------------------------------------------
+
+
+class _PairedWelch:
+    """Welch sums of one file's noise and programme segments, classified by the input (module notes)."""
+
+    def __init__(self, seg, spans, rate_hz):
+        self.seg = seg
+        self.spans = np.array([[round(a * rate_hz), round(b * rate_hz)] for a, b in (spans or ())],
+                              dtype=np.int64).reshape(-1, 2)
+        n = len(seg.freqs_hz)
+        self.noise = np.zeros(n)
+        self.prog = np.zeros(n)
+        self.n_noise = 0
+        self.n_prog = 0
+
+    def classify(self, first, count, p_in):
+        from audition.spectrum import SILENT_POWER
+
+        starts = (first + np.arange(count, dtype=np.int64)) * self.seg.hop
+        ends = starts + self.seg.nperseg
+        inside = np.zeros(count, dtype=bool)
+        touch = np.zeros(count, dtype=bool)
+        for a, b in self.spans:
+            inside |= (starts >= a) & (ends <= b)
+            touch |= (starts < b) & (ends > a)
+        live = p_in.sum(axis=1) * self.seg.df_hz > SILENT_POWER
+        return inside & live, ~touch & live
+
+
+def measure_render(in_path, out_path, design, survey, noise: NoiseReference | None = None):
+    """Measure what a render did, from the input and output files (module notes).
+
+    Returns
+    -------
+    audition.measure.Measured
+
+    Raises
+    ------
+    BadInputFile
+        The output is not the same length or channel count as the input, or the
+        noise reference holds no whole segment.
+    """
+    from audition import audiofile, measure
+    from audition.errors import BadInputFile
+    from audition.spectrum import Segmenter
+
+    noise = noise or NoiseReference()
+    rate, ch = survey.rate_hz, survey.channels
+    seg_in, seg_out = Segmenter(rate, ch, survey.nperseg), Segmenter(rate, ch, survey.nperseg)
+    use_clip = bool(noise.clip)
+    acc_in = _PairedWelch(seg_in, () if use_clip else survey.spans, rate)
+    acc_out = _PairedWelch(seg_out, () if use_clip else survey.spans, rate)
+    oinf = audiofile.info(out_path)
+    if oinf.channels != ch or oinf.frames != survey.frames:
+        raise BadInputFile(f"{out_path}: {oinf.frames} frames of {oinf.channels} channel(s); the input has "
+                           f"{survey.frames} of {ch}, so the render cannot be measured against it")
+    for xb, yb in zip(audiofile.blocks(in_path), audiofile.blocks(out_path)):
+        if len(xb) != len(yb):
+            raise BadInputFile(f"{out_path}: its blocks do not line up with the input's; cannot measure the render")
+        got_in = [(i0, p.copy()) for i0, p in seg_in.periodograms(xb)]
+        got_out = [p.copy() for _, p in seg_out.periodograms(yb)]
+        if not got_in:
+            continue
+        p_in, p_out = np.concatenate([p for _, p in got_in]), np.concatenate(got_out)
+        is_noise, is_prog = acc_in.classify(got_in[0][0], len(p_in), p_in)
+        if use_clip:
+            is_noise = np.zeros_like(is_noise)
+        for acc, p in ((acc_in, p_in), (acc_out, p_out)):
+            acc.noise += p[is_noise].sum(axis=0)
+            acc.prog += p[is_prog].sum(axis=0)
+            acc.n_noise += int(is_noise.sum())
+            acc.n_prog += int(is_prog.sum())
+    if use_clip:
+        noise_in, noise_out = _clip_psds(noise.clip, design, rate, ch, survey.nperseg)
+    else:
+        if acc_in.n_noise == 0:
+            raise BadInputFile(f"{in_path}: the noise reference holds no whole analysis segment to measure on")
+        noise_in, noise_out = acc_in.noise / acc_in.n_noise, acc_out.noise / acc_out.n_noise
+    if acc_in.n_prog == 0:
+        raise BadInputFile(f"{in_path}: no programme outside the noise reference to measure on")
+    # The same programme estimate as the survey's (band-averaged before the floor), so a floor bias in
+    # hiss-dominated bins of the input cannot pass for treble the render took away.
+    prog_in = measure.programme_estimate(survey.freqs_hz, acc_in.prog / acc_in.n_prog, noise_in)
+    prog_out = measure.programme_estimate(survey.freqs_hz, acc_out.prog / acc_out.n_prog, noise_out)
+    return measure.measure(survey.freqs_hz, noise_in, noise_out, prog_in, prog_out,
+                           treble_from_hz=noise.treble_from_hz)
+
+
+def _clip_psds(clip_path, design, rate, channels, nperseg):
+    """Welch PSDs of a noise clip before and after the design's sections (from rest, no dither)."""
+    from audition import audiofile
+    from audition.render import StreamingFilter
+    from audition.spectrum import WelchPSD
+
+    before, after = WelchPSD(rate, channels, nperseg), WelchPSD(rate, channels, nperseg)
+    filt = StreamingFilter(design.sos, channels)
+    for x in audiofile.blocks(clip_path):
+        before.feed(x)
+        after.feed(filt(x))
+    return before.psd, after.psd
+
+
+# ---------------------------------------------------------------------------
+# The job
+# ---------------------------------------------------------------------------
+
+
+def render_summary(r, d) -> dict:
+    """The JSON object of one render (what ``audition render --json`` prints)."""
+    dd = d.to_dict()
+    return {
+        "input": r.input,
+        "output": r.output,
+        "sidecar": r.sidecar,
+        "rate": r.rate_hz,
+        "channels": r.channels,
+        "format": r.format,
+        "subtype": r.subtype,
+        "input_subtype": r.input_subtype,
+        "frames": r.frames,
+        "duration_seconds": r.audio_seconds,
+        "f0_hz": dd["f0_hz"],
+        "q": dd["q"],
+        "order": dd["order"],
+        "alignment": dd["alignment"],
+        "highpass_hz": dd["highpass_hz"],
+        "sections": dd["sections"],
+        "method": r.method,
+        "dither": {"kind": "tpdf" if r.dither else "none", "peak_lsb": 1.0 if r.dither else 0.0,
+                   "bits": r.dither_bits, "seed": r.seed},
+        "peak_dbfs": r.peak_dbfs,
+        "clipped_samples": r.clipped_samples,
+        "trim_db": r.trim_db,
+        "input_sha256": r.input_sha256,
+        "seconds": r.seconds,
+        "realtime_factor": r.realtime_factor,
+    }
+
+
+def jsonable(obj):
+    """``obj`` with numpy scalars made plain and non-finite floats made None (strict JSON)."""
+    if isinstance(obj, dict):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        return float(obj) if math.isfinite(obj) else None
+    if isinstance(obj, np.ndarray):
+        return jsonable(obj.tolist())
+    return obj
+
+
+def _remove_quietly(*paths):
+    for p in paths:
+        if p and os.path.lexists(p):
+            try:
+                os.unlink(p)
+            except OSError:
+                pass
+
+
+def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None,
+               noise: NoiseReference | None = None, subtype: str | None = None, dither: bool = True, seed: int = 0,
+               overwrite: bool = False, progress=None, report_path=None) -> dict:
+    """Survey, plan (with ``auto``), render, measure and report one file.
+
+    Parameters
+    ----------
+    in_path, out_path : str or os.PathLike
+        The input is only read; the output gets a sidecar ``OUT.json``.
+    spec : audition.presets.FilterSpec, optional
+        The filter (from a plan or preset file, or explicit options).
+    auto : PlanSettings, optional
+        Plan the filter from the survey instead. Exactly one of ``spec`` and ``auto``.
+    noise : NoiseReference, optional
+        Where the hiss alone is. With it (or with ``auto`` or ``report_path``,
+        which need a survey and then default to the automatic noise reference)
+        the result holds the prediction and the measurement.
+    subtype, dither, seed, overwrite, progress
+        As :func:`audition.render.render_file`.
+    report_path : str, optional
+        Write one self-contained HTML page there after the render succeeded.
+
+    Returns
+    -------
+    dict
+        :func:`render_summary`'s keys, plus "settings"; with a survey "survey",
+        "predicted", "measured" and "warnings"; with ``auto`` "plan"; with
+        ``report_path`` "report". The sidecar holds "settings" and, as they
+        apply, "survey", "plan", "predicted" and "measured".
+
+    Raises
+    ------
+    AuditionError
+        BadParameter, BadInputFile or OutputRefused; nothing is left behind.
+    """
+    from audition import audiofile, measure, presets
+    from audition.render import render_file
+
+    if (spec is None) == (auto is None):
+        raise BadParameter("give exactly one filter source: a filter (spec) or automatic planning (auto)")
+    in_path, out_path = os.fspath(in_path), os.fspath(out_path)
+    side_path = audiofile.sidecar_path(out_path)
+    # Refuse every output before reading anything: a job fails early or not at all.
+    audiofile.check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
+    audiofile.check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
+    if report_path is not None:
+        report_path = os.fspath(report_path)
+        for other in (out_path, side_path):
+            if audiofile.same_file(report_path, other) or os.path.abspath(report_path) == os.path.abspath(other):
+                raise OutputRefused(f"{report_path!r}: the report would overwrite {other!r}; name another file")
+        audiofile.check_output_path(report_path, inputs=[in_path], overwrite=overwrite)
+    info = audiofile.info(in_path)
+    if noise is None and (auto is not None or report_path is not None):
+        noise = NoiseReference()
+    settings = job_settings(spec=spec, auto=auto, noise=noise, subtype=subtype, dither=dither, seed=seed)
+
+    survey = pl = None
+    if noise is not None:
+        survey = survey_path(in_path, noise)
+    if auto is not None:
+        pl = plan_survey(survey, noise, auto)
+        if pl.choice is None:
+            raise BadParameter(f"{in_path}: no filter keeps the treble loss within --budget-db "
+                               f"{auto.budget_db:g} dB; raise the budget or leave the treble alone")
+        d = pl.choice.design
+        filter_source = {"kind": "auto"}
+    else:
+        d = presets.check_design(spec, info.rate_hz)
+        filter_source = {"kind": "spec", "name": spec.name, "file": spec.source or None}
+
+    record = {"settings": settings, "filter_source": filter_source}
+    predicted = None
+    if survey is not None:
+        predicted = measure.predict(survey.freqs_hz, survey.programme_psd, survey.noise_psd, d,
+                                    treble_from_hz=noise.treble_from_hz).to_dict()
+        record["survey"] = survey.to_dict()
+        record["predicted"] = predicted
+    if pl is not None:
+        record["plan"] = compact_plan(pl)
+    record = jsonable(record)
+
+    r = render_file(in_path, out_path, d, subtype=subtype, dither=dither, seed=seed, overwrite=overwrite,
+                    progress=progress, record_extra=record)
+    try:
+        out = render_summary(r, d)
+        out.update(record)
+        if survey is not None:
+            measured = measure_render(in_path, out_path, d, survey, noise).to_dict()
+            out["measured"] = jsonable(measured)
+            out["warnings"] = list(pl.warnings) if pl is not None else _survey_warnings(survey)
+            sidecar = _read_json(side_path)
+            sidecar["measured"] = out["measured"]
+            audiofile.write_sidecar(side_path, sidecar)
+        if report_path is not None:
+            from audition import report
+
+            report.write(report_path, report.render_page(out, _read_json(side_path), survey, pl, d))
+            out["report"] = report_path
+    except BaseException:
+        # The render succeeded but the job did not: take back what this job wrote.
+        _remove_quietly(out_path, side_path)
+        raise
+    return jsonable(out)
+
+
+def compact_plan(pl) -> dict:
+    """The plan for a sidecar: the choice in full, the trade-off without section coefficients."""
+    def brief(c):
+        d = c.design
+        return {"f0_hz": d.f0_hz, "q": d.q, "order": d.order, "alignment": d.alignment,
+                "predicted": {"snr_gain_db": dict(c.snr_gain_db), "treble_loss_db": c.treble_loss_db}}
+
+    full = pl.to_dict()
+    full["candidates"] = [brief(c) for c in pl.front]
+    full["alternatives"] = [brief(c) for c in pl.alternatives]
+    return full
+
+
+def _survey_warnings(survey) -> list[str]:
+    from audition.plan import noise_warnings
+
+    return noise_warnings(survey)
+
+
+def _read_json(path) -> dict:
+    import json
+
+    with open(path, encoding="utf-8") as fh:
+        return json.load(fh)
+
+
+__all__ = ["NoiseReference", "PlanSettings", "survey_path", "refine_survey", "plan_survey", "plan_path",
+           "job_settings", "measure_render", "render_job", "render_summary", "compact_plan", "jsonable"]
