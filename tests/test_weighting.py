@@ -62,6 +62,33 @@ def test_a_weighting_rounds_to_the_iec_61672_table(f_hz, table_db):
     assert abs(float(gain_db("a", f_hz)) - table_db) <= 0.05
 
 
+# IEC 61672-1:2013 Table 3: nominal one-third-octave frequencies and the class 1 acceptance
+# limits (upper, lower) in dB around the table's design goals. The limits are from memory
+# (not found with the search tool); the nominal frequencies are those of IEC 61260-1.
+A_NOMINAL_HZ = [10, 12.5, 16, 20, 25, 31.5, 40, 50, 63, 80, 100, 125, 160, 200, 250, 315, 400, 500, 630, 800,
+                1000, 1250, 1600, 2000, 2500, 3150, 4000, 5000, 6300, 8000, 10000, 12500, 16000, 20000]
+A_CLASS1_LIMITS_DB = [
+    (3.5, math.inf), (3.0, math.inf), (2.5, 4.5), (2.5, 2.5), (2.5, 2.0), (2.0, 2.0), (1.5, 1.5), (1.5, 1.5),
+    (1.5, 1.5), (1.5, 1.5), (1.5, 1.5), (1.5, 1.5), (1.5, 1.5), (1.4, 1.4), (1.4, 1.4), (1.4, 1.4), (1.4, 1.4),
+    (1.4, 1.4), (1.4, 1.4), (1.4, 1.4), (1.1, 1.1), (1.4, 1.4), (1.6, 1.6), (1.6, 1.6), (1.6, 1.6), (1.6, 1.6),
+    (1.6, 1.6), (2.1, 2.1), (2.1, 2.1), (2.1, 3.1), (2.6, 3.6), (3.0, 6.0), (3.5, 17.0), (4.0, math.inf),
+]
+
+
+@pytest.mark.parametrize("nominal_hz, table_db, limits", list(zip(A_NOMINAL_HZ, A_TABLE_DB, A_CLASS1_LIMITS_DB)),
+                         ids=[f"{f:g}Hz" for f in A_NOMINAL_HZ])
+def test_a_weighting_at_nominal_frequencies_within_class_1_limits(nominal_hz, table_db, limits):
+    # IEC 61672-1:2013 Table 3 at the nominal frequencies a technician reads off a meter's
+    # band display: the curve evaluated there (not at the exact base-10 frequency) lies
+    # within the class 1 acceptance limits around the table's value.
+    upper, lower = limits
+    g = float(gain_db("a", nominal_hz))
+    assert table_db - lower <= g <= table_db + upper
+    # ... and much closer than that: the nominal frequencies differ from the exact ones by
+    # under 1.3 %, worth at most 0.3 dB on the steepest part of the curve.
+    assert abs(g - table_db) < 0.35
+
+
 def test_a_weighting_pole_frequencies_are_those_of_annex_e():
     # IEC 61672-1:2013 Annex E gives f1 = 20.598997, f2 = 107.65265, f3 = 737.86223,
     # f4 = 12194.217 Hz (from memory; the same digits appear in a public

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import sys
 
 from audition.cli.filteropts import add_filter_options
 from audition.cli.noiseopts import add_noise_options
@@ -32,11 +33,33 @@ def survey_report(s, design=None, treble_from_hz: float = 2000.0) -> dict:
     d["noise"]["rms_dbfs"] = measure.weighted_levels(s.freqs_hz, s.noise_psd, WEIGHTINGS)
     d["programme"]["rms_dbfs"] = measure.weighted_levels(s.freqs_hz, s.programme_psd, WEIGHTINGS)
     d["weighting_note"] = WEIGHTING_NOTE
+    d["warnings"] = noise_warnings(s)
     if design is not None:
         d["prediction"] = measure.predict(s.freqs_hz, s.programme_psd, s.noise_psd, design,
                                           treble_from_hz=treble_from_hz).to_dict()
         d["filter"] = design.to_dict()
     return d
+
+
+def noise_warnings(s) -> list:
+    """Warnings about the noise reference a technician must act on (empty when it looks sound)."""
+    conf = s.confidence
+    out = []
+    if conf.grade == "low":
+        why = []
+        if conf.separation_db is not None and conf.separation_db < 10:
+            why.append(f"only {conf.separation_db:.1f} dB below the programme")
+        if conf.level_spread_db > 1.0:
+            why.append(f"its level wanders by {conf.level_spread_db:.1f} dB")
+        if conf.noise_seconds < 0.5:
+            why.append(f"only {conf.noise_seconds:.2f} s long")
+        if conf.shape_spread_db is not None and conf.shape_spread_db > 3.0:
+            why.append(f"its spectrum changes by {conf.shape_spread_db:.1f} dB")
+        where = {"auto": "the spans found", "spans": "the given spans", "clip": "the noise clip"}[s.noise_source]
+        out.append("the noise reference is doubtful (" + ("; ".join(why) or "low confidence") + "): listen to "
+                   f"{where}; if they hold programme, give --noise-span START:END over hiss alone "
+                   "(tape leader, a pause) or --noise-clip FILE")
+    return out
 
 
 def format_report(path, r: dict) -> str:
@@ -87,6 +110,16 @@ def run(args) -> int:
 
     inf = audiofile.info(args.input)
     d = design_from_args(args, inf.rate_hz)  # checked before the long read
+    if args.plot:
+        import os
+
+        from audition.errors import OutputRefused
+
+        folder = os.path.dirname(os.path.abspath(args.plot))
+        if not os.path.isdir(folder):
+            raise OutputRefused(f"{args.plot}: folder {folder!r} does not exist; the plot could not be written")
+        if os.path.isdir(args.plot):
+            raise OutputRefused(f"{args.plot}: is a folder; give the plot a file name ending in .png")
     from audition.cli.noiseopts import survey_file
 
     s = survey_file(args.input, args)
@@ -94,7 +127,9 @@ def run(args) -> int:
     if args.plot:
         from audition.plots.survey import plot_survey
 
-        plot_survey(s, args.plot, design=d, title=str(args.input))
+        plot_survey(s, args.plot, design=d, title=str(args.input), prediction=r.get("prediction"))
+    for w in r["warnings"]:
+        print(f"audition survey: warning: {args.input}: {w}", file=sys.stderr)
     if args.json:
         print(json.dumps(r, indent=2))
     else:
