@@ -22,7 +22,7 @@ segments that are digital silence in the input count as neither. The measured
 noise reduction per weighting is the fall of the noise reference's weighted
 level; the measured treble loss and SNR gain use the programme estimates
 (programme segments minus noise, band-averaged and floored at zero as in
-:func:`audition.measure.programme_estimate`) of input and output. With a
+:func:`audition.spectrum.programme_estimate`) of input and output. With a
 separate noise clip the clip itself is run through the same sections (from
 rest, without dither) and every non-silent segment of the file is programme.
 """
@@ -113,30 +113,11 @@ def survey_path(path, noise: NoiseReference | None = None):
             raise BadParameter(f"{noise.clip}: the noise clip has {ninf.channels} channel(s), "
                                f"{path} has {inf.channels}; they must agree")
         noise_blocks, noise_rate = audiofile.blocks(noise.clip), ninf.rate_hz
-    raw = spectrum.survey_blocks(audiofile.blocks(path), inf.rate_hz, inf.channels, frames=inf.frames,
+    return spectrum.survey_blocks(audiofile.blocks(path), inf.rate_hz, inf.channels, frames=inf.frames,
                                  noise_spans=None if noise.spans is None else list(noise.spans),
                                  noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
-                                 margin_db=noise.margin_db, name=str(path))
-    return refine_survey(raw)
-
-
-def refine_survey(survey):
-    """The survey with its programme estimate band-averaged before the floor at zero, and its crossover again.
-
-    :func:`audition.spectrum.survey_blocks` floors outside-minus-noise bin by bin,
-    which reads treble that is not there wherever the programme has sunk into
-    the hiss (see :func:`audition.measure.programme_estimate`); every prediction,
-    plan, report and picture made here uses this estimate instead.
-    """
-    import dataclasses
-
-    from audition import measure, spectrum
-
-    prog = measure.programme_estimate(survey.freqs_hz, survey.outside_psd, survey.noise_psd)
-    prog.setflags(write=False)
-    c, bp = spectrum.band_levels(survey.freqs_hz, np.stack([prog, survey.noise_psd]), survey.fraction)
-    xo = spectrum.crossover(c, bp[0], bp[1], survey.margin_db)
-    return dataclasses.replace(survey, programme_psd=prog, crossover_hz=xo)
+                                 margin_db=noise.margin_db, name=str(path),
+                                 noise_name=str(noise.clip) if noise.clip else None)
 
 
 def plan_survey(survey, noise: NoiseReference | None = None, settings: PlanSettings | None = None):
@@ -235,7 +216,7 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
         The output is not the same length or channel count as the input, or the
         noise reference holds no whole segment.
     """
-    from audition import audiofile, measure
+    from audition import audiofile, measure, spectrum
     from audition.errors import BadInputFile
     from audition.spectrum import Segmenter
 
@@ -275,8 +256,8 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
         raise BadInputFile(f"{in_path}: no programme outside the noise reference to measure on")
     # The same programme estimate as the survey's (band-averaged before the floor), so a floor bias in
     # hiss-dominated bins of the input cannot pass for treble the render took away.
-    prog_in = measure.programme_estimate(survey.freqs_hz, acc_in.prog / acc_in.n_prog, noise_in)
-    prog_out = measure.programme_estimate(survey.freqs_hz, acc_out.prog / acc_out.n_prog, noise_out)
+    prog_in = spectrum.programme_estimate(survey.freqs_hz, acc_in.prog / acc_in.n_prog, noise_in)
+    prog_out = spectrum.programme_estimate(survey.freqs_hz, acc_out.prog / acc_out.n_prog, noise_out)
     return measure.measure(survey.freqs_hz, noise_in, noise_out, prog_in, prog_out,
                            treble_from_hz=noise.treble_from_hz)
 
@@ -489,5 +470,5 @@ def _read_json(path) -> dict:
         return json.load(fh)
 
 
-__all__ = ["NoiseReference", "PlanSettings", "survey_path", "refine_survey", "plan_survey", "plan_path",
+__all__ = ["NoiseReference", "PlanSettings", "survey_path", "plan_survey", "plan_path",
            "job_settings", "measure_render", "render_job", "render_summary", "compact_plan", "jsonable"]

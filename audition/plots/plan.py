@@ -43,10 +43,12 @@ def draw_tradeoff(ax, pl):
 
 def plan_figure(survey, pl, title: str = ""):
     plt = pyplot()
-    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(14, 5.5), width_ratios=(1, 1.3))
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(14, 6.4), width_ratios=(1, 1.3))
     draw_tradeoff(ax1, pl)
     ax1.set_title("trade-off", fontsize=10)
-    draw_survey(ax2, survey, None if pl.choice is None else pl.choice.design)
+    draw_survey(ax2, survey, None if pl.choice is None else pl.choice.design, legend_loc=None)
+    # below the axes, as in the survey picture: inside, it would hide the hiss or the labels
+    ax2.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=3, fontsize=8, frameon=False)
     ax2.set_title("spectra with the chosen filter", fontsize=10)
     fig.suptitle(title, fontsize=11)
     fig.tight_layout()
