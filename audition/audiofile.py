@@ -471,13 +471,15 @@ class Quantiser:
             Sample peak after and before saturation, full scale 1.0.
         """
         s = self.scale
+        # order="C": sosfilt hands back a frame-major view in column order; one C-ordered
+        # array here keeps every later pass contiguous and spares the writer a transposing copy.
         if self.dither:
             # x*s*2**16 + d, then *2**-16: power-of-two scalings are exact, so this is x*s + d/2**16
-            t = np.multiply(x, s * 65536.0)
-            t += self.dither_lsb(t.size).reshape(t.shape)
+            t = np.multiply(x, s * 65536.0, order="C")
+            np.add(t, self.dither_lsb(t.size).reshape(t.shape), out=t)
             t *= 1.0 / 65536.0
         else:
-            t = np.multiply(x, s)
+            t = np.multiply(x, s, order="C")
         np.rint(t, out=t)
         hi, lo = float(t.max(initial=0.0)), float(t.min(initial=0.0))
         clipped = 0
@@ -486,9 +488,10 @@ class Quantiser:
             np.clip(t, -s, s - 1, out=t)
         unclipped = max(hi, -lo) / s
         peak = max(min(hi, s - 1), -max(lo, -s)) / s
-        q = t.astype(np.int32)
-        if self.bits < 32:
-            q <<= 32 - self.bits
+        # left-justify and convert in one pass: integers times 2**(32-bits) stay exact in float64
+        # and within int32 after the saturation above
+        q = np.empty(t.shape, dtype=np.int32)
+        np.multiply(t, float(2 ** (32 - self.bits)), out=q, casting="unsafe")
         return q, clipped, peak, unclipped
 
 

@@ -693,8 +693,14 @@ def check_rate(rate_hz: float) -> float:
 def check_f0(f0_hz: float, rate_hz: float, name: str = "f0") -> float:
     nyq = rate_hz / 2.0
     if not (isinstance(f0_hz, (int, float)) and math.isfinite(f0_hz) and 0.0 < f0_hz < nyq):
+        if not (isinstance(f0_hz, (int, float)) and math.isfinite(f0_hz)):
+            why = "a frequency must be a finite number"
+        elif f0_hz <= 0.0:
+            why = "a frequency must be above 0 Hz"
+        else:
+            why = "a cutoff at or above Nyquist means nothing"
         raise BadParameter(f"{name}={f0_hz!r} Hz: must satisfy 0 < {name} < rate/2 (rate={rate_hz:g} -> {nyq:g} Hz); "
-                           "a cutoff at or above Nyquist means nothing")
+                           f"{why}")
     return float(f0_hz)
 
 

@@ -84,10 +84,28 @@ def make_file(path: str, minutes: float, seed: int = 1) -> None:
             w.write(tone + 0.05 * rng.standard_normal((n, 2)))
 
 
-def timed(cmd) -> float:
+CPU_SECONDS: dict[str, list[float]] = {}
+
+
+def timed(cmd, label: str | None = None) -> float:
+    """Wall seconds of one child process; its CPU seconds (user + system) go to CPU_SECONDS[label]."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
     subprocess.run(cmd, check=True, env=env(), cwd=ROOT, stdout=subprocess.DEVNULL)
-    return time.perf_counter() - t0
+    wall = time.perf_counter() - t0
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    if label is not None:
+        cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+        CPU_SECONDS.setdefault(label, []).append(cpu)
+    return wall
+
+
+def load() -> str:
+    """The machine's 1-minute load average (other people's work makes every wall time noisy)."""
+    try:
+        return f"{os.getloadavg()[0]:.2f}"
+    except OSError:
+        return "unknown"
 
 
 def remove(*paths):
@@ -120,6 +138,7 @@ def main(argv=None) -> int:
     a = ap.parse_args(argv)
 
     with tempfile.TemporaryDirectory(dir=a.dir) as d:
+        print(f"load average at the start: {load()} on {os.cpu_count()} cpus", flush=True)
         src = os.path.join(d, "in.wav")
         print(f"writing a {a.minutes:g}-minute 48 kHz stereo PCM_24 WAV ...", flush=True)
         make_file(src, a.minutes)
@@ -128,17 +147,19 @@ def main(argv=None) -> int:
         times = {"copy": [], "render": [], "hand": []}
         for i in range(a.repeats):
             remove(copy_out)
-            times["copy"].append(timed([sys.executable, "-c", COPY, src, copy_out]))
+            times["copy"].append(timed([sys.executable, "-c", COPY, src, copy_out], "copy"))
             remove(render_out, render_out + ".json")
-            times["render"].append(timed(render_cmd(src, render_out)))
+            times["render"].append(timed(render_cmd(src, render_out), "render"))
             if not a.no_hand:
                 remove(hand_out)
-                times["hand"].append(timed([sys.executable, "-c", BY_HAND, src, hand_out]))
-            print(f"  run {i + 1}: " + ", ".join(f"{k} {v[-1]:.2f} s" for k, v in times.items() if v), flush=True)
+                times["hand"].append(timed([sys.executable, "-c", BY_HAND, src, hand_out], "hand"))
+            print(f"  run {i + 1}: " + ", ".join(f"{k} {v[-1]:.2f} s" for k, v in times.items() if v)
+                  + f"   (load average {load()})", flush=True)
         remove(copy_out, hand_out)
         med = {k: statistics.median(v) for k, v in times.items() if v}
         audio_s = a.minutes * 60
         print()
+        cpu = {k: statistics.median(v) for k, v in CPU_SECONDS.items()}
         print(f"copy (soundfile blocks)      {med['copy']:7.2f} s")
         print(f"audition render (dither on)  {med['render']:7.2f} s   ({audio_s / med['render']:,.0f}x real time)")
         r = med["copy"] / med["render"]
@@ -147,6 +168,8 @@ def main(argv=None) -> int:
             h = med["hand"] / med["render"]
             print(f"read-all + sosfilt + write   {med['hand']:7.2f} s")
             print(f"hand_seconds / render_seconds = {h:.2f}   (goal >= 4: {verdict(h >= 4)})")
+        print("CPU seconds (user + system, medians): " + ", ".join(f"{k} {v:.2f}" for k, v in cpu.items())
+              + "   (the render's threads can only beat the copy's wall time on cores nobody else is using)")
 
         aud = [sys.executable, "-m", "audition"]
         ver = statistics.median(timed(aud + ["--version"]) for _ in range(5))

@@ -2,6 +2,7 @@
 
 import json
 import math
+import os
 
 import numpy as np
 import pytest
@@ -141,17 +142,28 @@ def test_linkwitz_riley_6db_at_f0(order):
 @pytest.mark.parametrize("q", [0.5, 0.7071, 1.5, 4.0])
 @pytest.mark.parametrize("f0", [500.0, 8000.0])
 def test_noise_equivalent_bandwidth(q, f0):
-    # Handbook result: the second-order low-pass has integral |H(f)|^2 df = (pi/2) Q f0 over 0..inf
-    # (e.g. H. W. Ott, "Noise Reduction Techniques in Electronic Systems", noise bandwidth table; from memory).
+    # Handbook result: the second-order low-pass H0 w0^2/(s^2 + (w0/Q)s + w0^2) has noise-equivalent
+    # bandwidth integral_0^inf |H(f)|^2 df = (pi/2) Q f0 (for H0 = 1). Sources, both from memory: the
+    # noise-bandwidth section of H. W. Ott, "Noise Reduction Techniques in Electronic Systems" (2nd ed.,
+    # 1988), and the table of integrals I_n = (1/2 pi j) integral H(s)H(-s) ds of H. M. James,
+    # N. B. Nichols, R. S. Phillips, "Theory of Servomechanisms" (1947), whose
+    # I_2 = (c1^2 d0 + c0^2 d2) / (2 d0 d1 d2) for H = (c1 s + c0)/(d2 s^2 + d1 s + d0)
+    # gives Q w0 / 2 over -inf..inf in rad/s, i.e. (pi/2) Q f0 one-sided in Hz.
     d = design.lowpass(f0, 48000, q=q)
 
     def power(f):
         return abs(complex(d.analog_response(f))) ** 2
 
+    # numerical integration of the design's own analog response (scipy.integrate.quad)
     val = sum(integrate.quad(power, lo, hi, limit=400)[0] for lo, hi in
               [(0, f0 / 2), (f0 / 2, f0), (f0, 2 * f0), (2 * f0, 1e3 * f0)])
     val += integrate.quad(power, 1e3 * f0, np.inf)[0]
     assert val == pytest.approx(math.pi / 2 * q * f0, rel=1e-6)
+    # the same figure from the James-Nichols-Phillips I_2 with the design's analog coefficients
+    num, (d2, d1, d0) = d.sections[0].analog_coefficients()
+    c1, c0 = num[-2], num[-1]
+    i2 = (c1 * c1 * d0 + c0 * c0 * d2) / (2 * d0 * d1 * d2)  # = integral over all f of |H(j 2 pi f)|^2 df
+    assert i2 / 2 == pytest.approx(val, rel=1e-6)  # |H|^2 is even in f: half of it is the 0..inf part
 
 
 @pytest.mark.parametrize("r,l,c", [(100.0, 10e-3, 1e-6), (2200.0, 0.1, 4.7e-9), (10.0, 1e-3, 100e-9)])
@@ -292,8 +304,10 @@ def test_from_dict_round_trip():
 
 
 @pytest.mark.parametrize("kwargs,needle", [
-    ({"f0_hz": 0.0, "rate_hz": 48000}, "0 < f0 < rate/2 (rate=48000 -> 24000 Hz)"),
-    ({"f0_hz": 24000.0, "rate_hz": 48000}, "0 < f0 < rate/2"),
+    ({"f0_hz": 0.0, "rate_hz": 48000}, "0 < f0 < rate/2 (rate=48000 -> 24000 Hz); a frequency must be above 0"),
+    ({"f0_hz": -10.0, "rate_hz": 44100}, "0 < f0 < rate/2 (rate=44100 -> 22050 Hz)"),
+    ({"f0_hz": 24000.0, "rate_hz": 48000}, "0 < f0 < rate/2 (rate=48000 -> 24000 Hz); a cutoff at or above Nyquist"),
+    ({"f0_hz": 1000.0, "rate_hz": 48000, "q": -0.5}, "q=-0.5: Q must satisfy 0 < Q <= 100"),
     ({"f0_hz": 1000.0, "rate_hz": 48000, "q": 0.0}, "Q must satisfy 0 < Q"),
     ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 0}, "order must be an integer from 1 to 12"),
     ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 4, "alignment": "chebyshev"}, "allowed are butterworth"),
@@ -324,9 +338,17 @@ def test_cli_sections_and_plot(tmp_path, capsys):
     assert main(["response", "--section", "9000:0.54", "--section", "9000:1.31", "--section", "12000",
                  "--rate", "48000", "--plot", str(png)]) == 0
     text = capsys.readouterr().out
-    assert "3 section(s)" in text and "first order" in text
+    assert "3 section(s)" in text and "first order" in text and "a cascade of the sections below" in text
+    # the readable table: every figure carries its unit
+    for label, unit in [("-3.01 dB (half power)", "Hz"), ("peak gain", "dB at"), ("step overshoot", "%"),
+                        ("group delay at 1 kHz", "ms"), ("group delay at f0", "ms"), ("(this design)", "dB at")]:
+        line = next(ln for ln in text.splitlines() if label in ln)
+        assert unit in line, line
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert [p.name for p in tmp_path.iterdir()] == ["r.png"]
+    umask = os.umask(0)
+    os.umask(umask)
+    assert (os.stat(png).st_mode & 0o777) == 0o666 & ~umask  # a plain new file's permissions, not 0600
 
 
 @pytest.mark.parametrize("argv,needle", [
@@ -345,8 +367,18 @@ def test_cli_bad_input_one_line_exit_2(argv, needle, capsys):
     assert err.count("\n") == 1 and err.startswith("audition response: error:")
 
 
-def test_cli_unknown_alignment_exit_2(capsys):
+@pytest.mark.parametrize("argv,needle", [
+    (["--f0", "1000", "--order", "4", "--alignment", "elliptic"],
+     "argument --alignment: invalid choice: 'elliptic' (choose from 'butterworth', 'bessel', 'linkwitz-riley')"),
+    (["--f0", "1000", "--order", "four"], "argument --order: invalid int value: 'four'"),
+    (["--f0", "1000", "--method", "impulse"], "argument --method: invalid choice: 'impulse'"),
+])
+def test_cli_unknown_names_one_line_exit_2(argv, needle, capsys):
+    # The bad-input rule: one line naming the parameter and what it allows, exit status 2
+    # (argparse's usage block is left out).
     with pytest.raises(SystemExit) as info:
-        main(["response", "--f0", "1000", "--order", "4", "--alignment", "elliptic"])
+        main(["response", *argv])
     assert info.value.code == 2
-    assert "invalid choice: 'elliptic'" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert needle in err
+    assert err.count("\n") == 1 and err.startswith("audition response: error:")

@@ -105,6 +105,52 @@ def test_integer_render_is_sosfilt_plus_tpdf_error(tmp_path, subtype):
     assert np.mean(e ** 2) == pytest.approx(0.25, abs=0.01)
 
 
+def _low_level_sine_render(tmp_path, dither):
+    """A 1 kHz sine of 1.5 LSB (16-bit) peak, 2 s at 48 kHz, stored as DOUBLE, rendered to PCM_16."""
+    rate, f, n = 48000, 1000, 96000
+    x = (1.5 / 2 ** 15 * np.sin(2 * np.pi * f * np.arange(n) / rate))[:, None]
+    src, out = tmp_path / "sine.wav", tmp_path / f"sine-{dither}.wav"
+    audiofile.write_clip(src, x, rate, "DOUBLE", overwrite=True)
+    d = design.lowpass(18000.0, float(rate), q=0.5)  # flat to well above the 9th harmonic
+    render.render_file(src, out, d, subtype="PCM_16", dither=dither, seed=7, overwrite=True)
+    ints, _ = read_wav_ints(out)  # stdlib reader, not libsndfile
+    return ints[:, 0].astype(float), scipy.signal.sosfilt(d.sos, x[:, 0]) * 2 ** 15
+
+
+def _harmonics_db(q, f=1000, rate=48000):
+    """Levels of harmonics 3, 5, 7, 9 relative to the fundamental, from one coherent FFT (2 s, no window)."""
+    n = len(q)
+    spec = np.abs(np.fft.rfft(q)) / (n / 2)
+    fund = spec[f * n // rate]
+    return fund, np.array([20 * np.log10(spec[k * f * n // rate] / fund) for k in (3, 5, 7, 9)])
+
+
+def test_undithered_render_of_a_low_level_sine_has_the_expected_distortion(tmp_path):
+    # LWV 1992: without dither the requantisation error of a signal a few LSB high is a deterministic
+    # function of the signal, so it shows up as harmonics. Expected levels computed independently:
+    # numpy rounding of scipy.signal.sosfilt's output (reference library) gives the same integers.
+    q, exact = _low_level_sine_render(tmp_path, dither=False)
+    expected = np.round(exact)
+    assert np.count_nonzero(q != expected) <= 2  # ties at exactly .5 LSB may round either way
+    _, h_got = _harmonics_db(q)
+    _, h_ref = _harmonics_db(expected)
+    np.testing.assert_allclose(h_got, h_ref, atol=0.1)
+    assert h_got.max() > -30.0  # the third harmonic stands out (about -16 dB re the fundamental here)
+
+
+def test_dithered_render_of_a_low_level_sine_has_no_harmonics(tmp_path):
+    # LWV 1992: TPDF dither of +-1 LSB makes the error's first two moments independent of the signal:
+    # the harmonics sink into a flat noise floor and the fundamental keeps its level (E[q | x] = x).
+    q, exact = _low_level_sine_render(tmp_path, dither=True)
+    fund, h = _harmonics_db(q)
+    assert h.max() < -40.0  # noise floor per bin: LSB^2/4 spread over 48000 bins, about -55 dB re 1.5 LSB
+    fund_ref, _ = _harmonics_db(exact)
+    assert 20 * np.log10(fund / fund_ref) == pytest.approx(0.0, abs=0.2)
+    e = q - exact
+    assert np.mean(e ** 2) == pytest.approx(0.25, abs=0.01)  # total error power LSB^2/4 (LWV 1992)
+    assert abs(np.corrcoef(e, exact)[0, 1]) < 0.02  # uncorrelated with the signal
+
+
 def test_same_seed_same_bytes_whatever_the_blocks(tmp_path):
     # "The same inputs give the same bytes" (project convention), threads or not, any block size.
     src = tmp_path / "in.wav"
@@ -123,13 +169,22 @@ def test_same_seed_same_bytes_whatever_the_blocks(tmp_path):
 # formats, metadata, the input untouched
 # ---------------------------------------------------------------------------
 
-FORMATS = [
-    (".wav", "PCM_U8", 8000, 1), (".wav", "PCM_16", 44100, 2), (".wav", "PCM_24", 96000, 8),
-    (".wav", "PCM_32", 48000, 3), (".wav", "FLOAT", 384000, 2), (".wav", "DOUBLE", 22050, 1),
-    (".w64", "PCM_24", 48000, 2), (".rf64", "PCM_16", 48000, 6), (".flac", "PCM_16", 44100, 2),
-    (".flac", "PCM_24", 192000, 4), (".flac", "PCM_S8", 11025, 1), (".aiff", "PCM_16", 48000, 2),
-    (".aiff", "PCM_24", 88200, 1), (".aiff", "FLOAT", 32000, 2),
-]
+def _format_grid():
+    """Every container the issue names with every subtype libsndfile lets it hold (sf.check_format),
+    rates 8 kHz..384 kHz and 1..8 channels spread over the cases."""
+    import soundfile as sf
+
+    rates = [8000, 11025, 22050, 32000, 44100, 48000, 88200, 96000, 192000, 384000]
+    out = []
+    for ext, fmt in [(".wav", "WAV"), (".w64", "W64"), (".rf64", "RF64"), (".flac", "FLAC"), (".aiff", "AIFF")]:
+        for subtype in ("PCM_S8", "PCM_U8", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE"):
+            if sf.check_format(fmt, subtype):
+                i = len(out)
+                out.append((ext, subtype, rates[i % len(rates)], 1 + i % 8))
+    return out
+
+
+FORMATS = _format_grid()
 
 
 @pytest.mark.parametrize("ext,subtype,rate,channels", FORMATS)
@@ -233,6 +288,46 @@ def test_summary_names_sample_peak_and_no_progress_bar_off_a_terminal(tmp_path, 
     assert cap.err == ""  # stderr is not a terminal under pytest: no bar
 
 
+def _render_on_a_terminal(tmp_path, *extra):
+    """Run ``audition render`` as a process whose stderr is a pseudo-terminal; returns (status, terminal text)."""
+    import pty
+    import select
+
+    src = tmp_path / "long.wav"
+    if not src.exists():
+        audiofile.write_clip(src, signal_block(48000 * 8, 2), 48000, "PCM_16")  # 8 s: "longer than a few seconds"
+    out = tmp_path / f"o{len(extra)}.wav"
+    master, slave = pty.openpty()
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env = dict(os.environ, PYTHONPATH=root + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    p = subprocess.Popen([sys.executable, "-m", "audition", "render", str(src), str(out), "--f0", "8000", *extra],
+                         stdout=subprocess.DEVNULL, stderr=slave, env=env)
+    os.close(slave)
+    chunks = []
+    while True:
+        ready, _, _ = select.select([master], [], [], 60)
+        if not ready:
+            break
+        try:
+            data = os.read(master, 4096)
+        except OSError:  # the child closed the terminal
+            break
+        if not data:
+            break
+        chunks.append(data)
+    os.close(master)
+    return p.wait(timeout=60), b"".join(chunks).decode("utf-8", "replace")
+
+
+def test_progress_on_a_terminal_and_quiet_with_the_option(tmp_path):
+    # The issue's behaviour: a progress bar on a terminal for files longer than a few seconds,
+    # nothing with --quiet (POSIX pseudo-terminal as the terminal).
+    rc, text = _render_on_a_terminal(tmp_path)
+    assert rc == 0 and "%" in text
+    rc, text = _render_on_a_terminal(tmp_path, "--quiet")
+    assert rc == 0 and text.strip() == ""
+
+
 def test_progress_bar_draws_on_a_terminal():
     from audition.cli.render import ProgressBar
     import io
@@ -286,6 +381,18 @@ def _bad_case(tmp_path, case, monkeypatch):
         # G.711 mu-law WAV (format tag 7): libsndfile reads it, audition does not write it
         src.write_bytes(wav_bytes(np.full((800, 1), 0xFF), 8000, 7, "u1"))
         return [str(src), str(out), "--f0", "3000"], ["in.wav", "ULAW", "--subtype"]
+    if case == "header with no frames":
+        src.write_bytes(wav_bytes(np.zeros((0, 2)), 48000, 1, "<i2"))  # a valid RIFF header, empty data chunk
+        return [str(src), str(out)], ["in.wav", "no audio frames"]
+    if case == "inf sample":
+        x = np.zeros((70_000, 3))
+        x[65_600, 2] = -np.inf  # the first offending sample: frame 65600, third channel
+        x[69_000, 0] = np.nan
+        src.write_bytes(wav_bytes(x, 48000, 3, "<f8"))
+        return [str(src), str(out)], ["in.wav", "frame 65600 channel 3", "-inf"]
+    if case == "rate below 8 kHz":
+        src.write_bytes(wav_bytes(np.zeros((4000, 1)), 4000, 1, "<i2"))
+        return [str(src), str(out), "--f0", "1000"], ["in.wav", "at least 8000 Hz"]
     if case == "nan sample":
         x = np.zeros((70_000, 2))
         x[66_000, 1] = np.nan  # in the second block, so the first one is already written
@@ -327,8 +434,8 @@ def _bad_case(tmp_path, case, monkeypatch):
     raise AssertionError(case)
 
 
-BAD_CASES = ["missing", "zero length", "corrupt", "folder as input", "unreadable", "unsupported encoding",
-             "nan sample", "output is input", "output links to input", "output exists", "folder missing",
+BAD_CASES = ["missing", "zero length", "header with no frames", "corrupt", "folder as input", "unreadable",
+             "unsupported encoding", "nan sample", "inf sample", "rate below 8 kHz", "output is input", "output links to input", "output exists", "folder missing",
              "folder not writable", "disk full", "f0 at nyquist", "f0 above nyquist", "no filter"]
 
 

@@ -11,11 +11,21 @@ HELP = "show a filter design: digital sections, deviation from the analog respon
 
 def add_parser(sub) -> None:
     p = sub.add_parser("response", help=HELP, description=HELP.capitalize() + ".")
+    p.error = _one_line_error(p)
     add_filter_options(p)
     p.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--plot", metavar="FILE.png", help="draw magnitude and phase, analog against digital")
     p.set_defaults(run=run)
+
+
+def _one_line_error(parser):
+    """argparse's error without the usage block: one line naming the option and what it allows, exit 2."""
+
+    def error(message: str):
+        parser.exit(2, f"{parser.prog}: error: {message} (see --help)\n")
+
+    return error
 
 
 def report(d) -> dict:
@@ -54,7 +64,19 @@ def format_table(r: dict) -> str:
     def hz(v):
         return "—" if v is None else f"{v:,.1f} Hz"
 
-    what = f"order {r['order']}" + (f" {r['alignment']}" if r["alignment"] else f", Q {r['q']:.4g}" if r["q"] else "")
+    def coeffs(values):
+        return ", ".join(f"{round(x, 10) + 0.0:+.10f}" for x in values)  # + 0.0: no "-0.0000000000"
+
+    def db(v):
+        return f"{round(v, 2) + 0.0:+.2f} dB"  # + 0.0: no "-0.00" for a flat passband
+
+    n_low = sum(a["kind"] == "lowpass" for a in r["analog_sections"])
+    if r["alignment"]:
+        what = f"order {r['order']} {r['alignment']}"
+    elif n_low > 1:
+        what = f"order {r['order']}, a cascade of the sections below"
+    else:
+        what = f"order {r['order']}" + (f", Q {r['q']:.4g}" if r["q"] else "")
     lines = [
         f"low-pass f0 {r['f0_hz']:,.1f} Hz, {what}, H0 {r['gain_db']:+.2f} dB"
         + (f", rumble high-pass {r['highpass_hz']:,.1f} Hz" if r["highpass_hz"] else ""),
@@ -63,12 +85,12 @@ def format_table(r: dict) -> str:
     for i, (a, s) in enumerate(zip(r["analog_sections"], r["sections"]), 1):
         q = "first order" if a["q"] is None else f"Q {a['q']:.4f}"
         lines.append(f"  {i}. {a['kind']:<8} f0 {a['f0_hz']:>10,.1f} Hz  {q:<11}  "
-                     f"b = [{', '.join(f'{x:+.10f}' for x in s['b'])}]  a = [{', '.join(f'{x:+.10f}' for x in s['a'])}]")
+                     f"b = [{coeffs(s['b'])}]  a = [{coeffs(s['a'])}]")
     lo, hi = r["deviation_band_hz"]
     lines += [
         "",
         f"  {'-3.01 dB (half power)':<28}{hz(r['minus3db_hz'])}",
-        f"  {'peak gain':<28}{r['peak_gain_db']:+.2f} dB at {hz(r['peak_hz'])}",
+        f"  {'peak gain':<28}{db(r['peak_gain_db'])} at {hz(r['peak_hz'])}",
         f"  {'step overshoot':<28}" + ("—" if r["overshoot_pct"] is None else f"{r['overshoot_pct']:.2f} %"),
         f"  {'group delay at 1 kHz':<28}{r['group_delay_ms']['1000']:.4f} ms",
         f"  {'group delay at f0':<28}{r['group_delay_ms']['f0']:.4f} ms",

@@ -29,6 +29,10 @@ def save_figure(fig, path: str | os.PathLike, dpi: int = 120) -> None:
     if not os.path.isdir(folder):
         raise OutputRefused(f"{path}: folder {folder!r} does not exist")
     fd, tmp = tempfile.mkstemp(prefix=".audition-", suffix=".png.tmp", dir=folder)
+    # mkstemp makes 0600; give the picture the permissions a plain new file would get
+    umask = os.umask(0)
+    os.umask(umask)
+    os.fchmod(fd, 0o666 & ~umask)
     try:
         with os.fdopen(fd, "wb") as fh:
             fig.savefig(fh, format="png", dpi=dpi)
