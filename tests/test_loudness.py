@@ -83,6 +83,40 @@ def test_sine_in_one_front_channel(rate_hz, channels, index, dbfs_peak, expected
     assert integrated_lkfs(x, rate_hz) == pytest.approx(expected, abs=0.02)
 
 
+# ITU-R BS.1770-4 Annex 1, Table 1 (stage 1, the high shelf) and Table 2 (stage 2, the
+# high-pass), the coefficients at 48 kHz as printed (a0 = 1). Checked digit by digit against
+# tests/test_weighting.py, which names where its copy was checked.
+BS1770_TABLE_48K = {
+    "shelf": ([1.53512485958697, -2.69169618940638, 1.19839281085285], [1.0, -1.69065929318241, 0.73248077421585]),
+    "highpass": ([1.0, -2.0, 1.0], [1.0, -1.99004745483398, 0.99007225036621]),
+}
+
+
+def test_the_meter_k_weights_with_the_tabulated_48k_filter():
+    # The loudness path itself (k_filter and LoudnessMeter), not only the coefficient
+    # table: its impulse response equals the two tabulated stages run by
+    # scipy.signal.lfilter (reference library), and a 1 kHz sine read by the meter equals
+    # eq. (2)-(4) applied by hand to the tabulated filter's output.
+    from scipy.signal import lfilter
+
+    impulse = np.zeros(4800)
+    impulse[0] = 1.0
+    expected = impulse
+    for b, a in BS1770_TABLE_48K.values():
+        expected = lfilter(b, a, expected)
+    got, _ = k_filter(impulse, 48000)
+    np.testing.assert_allclose(got[:, 0], expected, rtol=0, atol=1e-14)
+
+    x = sine(48000, 2.0, 1000.0, -20.0)
+    y = x
+    for b, a in BS1770_TABLE_48K.values():
+        y = lfilter(b, a, y)
+    z = np.array([np.mean(y[j * 4800:j * 4800 + 19200] ** 2) for j in range(17)])  # eq. (3), 400 ms, 75 % overlap
+    by_hand = -0.691 + 10 * np.log10(np.mean(z))  # eq. (4)/(7); every block passes both gates
+    assert integrated_lkfs(x, 48000) == pytest.approx(by_hand, abs=1e-9)
+    assert by_hand == pytest.approx(-23.01, abs=0.01)  # the Recommendation's -3.01 LKFS at 0 dB FS, less 20 dB
+
+
 def test_surround_channels_weigh_1_41():
     # ITU-R BS.1770-4 Table 3: G = 1.41 (+1.49 dB) for the surround channels Ls, Rs.
     x = sine(48000, 2.0)
