@@ -34,6 +34,8 @@ the audible band, so a user can choose between them.
 
 from __future__ import annotations
 
+import functools
+
 import math
 from dataclasses import dataclass, field
 
@@ -142,6 +144,12 @@ def bessel_sections(order: int) -> list[tuple[float, float | None]]:
     Poles from :func:`scipy.signal.besselap`; a pair p gives omega0 = |p| and
     Q = |p| / (-2 Re p).
     """
+    return list(_bessel_table(int(order)))
+
+
+@functools.lru_cache(maxsize=None)
+def _bessel_table(order: int) -> tuple[tuple[float, float | None], ...]:
+    # Computed once per order: besselap takes milliseconds and the planner asks at every f0 of its grid.
     from scipy.signal import besselap
 
     _, poles, _ = besselap(order, norm="mag")
@@ -152,7 +160,7 @@ def bessel_sections(order: int) -> list[tuple[float, float | None]]:
         elif p.imag > 0:
             out.append((float(abs(p)), float(abs(p) / (-2.0 * p.real))))
     out.sort(key=lambda fq: -1.0 if fq[1] is None else fq[1])
-    return out
+    return tuple(out)
 
 
 def alignment_sections(f0_hz: float, order: int, alignment: str, kind: str = "lowpass") -> list[Section]:

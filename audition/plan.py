@@ -13,7 +13,6 @@ lower order), because a technician would rather keep what cannot be put back.
 
 from __future__ import annotations
 
-import functools
 import math
 from dataclasses import dataclass, field
 
@@ -124,39 +123,10 @@ def candidate_designs(rate_hz: float, orders=DEFAULT_ORDERS, method: str = "bili
                          if not (a == "linkwitz-riley" and order % 2)]
             for spec in specs:
                 try:
-                    if spec.get("alignment") == "bessel":
-                        out.append(_bessel(float(f0), rate_hz, order, method, highpass_hz))
-                    else:
-                        out.append(design.lowpass(float(f0), rate_hz, method=method, highpass_hz=highpass_hz,
-                                                  **spec))
+                    out.append(design.lowpass(float(f0), rate_hz, method=method, highpass_hz=highpass_hz, **spec))
                 except BadParameter:
                     continue  # e.g. a Bessel section pushed above Nyquist at the top of the grid
     return out
-
-
-def _bessel(f0_hz, rate_hz, order, method, highpass_hz):
-    """``design.lowpass(f0, rate, order=order, alignment="bessel", ...)``, with the Bessel table computed once.
-
-    scipy's besselap takes milliseconds per call and the grid asks for the same
-    table at every f0; the sections are the table's (factor × f0, Q) pairs, exactly
-    as :func:`audition.design.alignment_sections` makes them (tests compare the two).
-    """
-    import dataclasses
-
-    from audition import design
-
-    if highpass_hz is not None and highpass_hz >= f0_hz:
-        raise BadParameter(f"highpass={highpass_hz!r} Hz must lie below the low-pass f0={f0_hz!r} Hz")
-    pairs = [(f0_hz * factor, q) for factor, q in _bessel_table(order)]
-    d = design.from_sections(pairs, rate_hz, method=method, highpass_hz=highpass_hz)
-    return dataclasses.replace(d, f0_hz=float(f0_hz), q=None, order=int(order), alignment="bessel")
-
-
-@functools.lru_cache(maxsize=None)
-def _bessel_table(order: int) -> tuple:
-    from audition import design
-
-    return tuple(design.bessel_sections(order))
 
 
 def power_responses(designs, freqs_hz) -> np.ndarray:

@@ -231,21 +231,3 @@ def test_hum_warns():
     s = spectrum.survey_array(c.mix + hum[:, None], c.rate_hz, noise_spans=[(0.1, 1.4)])
     assert any(w.startswith("hum") for w in plan.noise_warnings(s))
     assert not any(w.startswith("hum") for w in plan.noise_warnings(surveyed(*KEYS[0])))
-
-
-@pytest.mark.parametrize("rate,highpass", [(44100, None), (96000, 30.0)])
-def test_candidate_grid_bessel_equals_design_lowpass(rate, highpass):
-    # The planner builds its Bessel candidates from one table per order; they must be design.lowpass's.
-    fast = [d for d in plan.candidate_designs(rate, (3, 4), highpass_hz=highpass) if d.alignment == "bessel"]
-    slow = []
-    for order in (3, 4):
-        for f0 in plan.f0_grid(rate):
-            try:
-                slow.append(design.lowpass(float(f0), rate, order=order, alignment="bessel", highpass_hz=highpass))
-            except Exception:
-                continue
-    assert len(fast) == len(slow) > 0
-    for a, b in zip(fast, slow):
-        assert (a.f0_hz, a.q, a.order, a.alignment, a.highpass_hz) == (b.f0_hz, b.q, b.order, b.alignment, b.highpass_hz)
-        assert a.sections == b.sections
-        np.testing.assert_array_equal(a.sos, b.sos)

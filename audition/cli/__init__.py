@@ -21,14 +21,21 @@ from audition.errors import AuditionError
 COMMANDS = ("synth", "survey", "plan", "response", "render", "listen", "batch", "realize", "presets")
 
 
+class OneLineParser(argparse.ArgumentParser):
+    """argparse without the usage block on a bad option: one line naming the option and what it allows, exit 2."""
+
+    def error(self, message: str):
+        self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = OneLineParser(
         prog="audition",
         description="Choose, render, measure and audition hiss (low-pass) filters "
         "for the restoration of worn tape, cassette and disc transfers.",
     )
     parser.add_argument("--version", action="version", version=f"audition {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=OneLineParser)
     for name in COMMANDS:
         try:
             module = importlib.import_module(f"audition.cli.{name}")
@@ -40,11 +47,13 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-
-
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+    except KeyboardInterrupt:
+        print("audition: interrupted", file=sys.stderr)
+        return 130
     if args.command is None:
         parser.print_help()
         return 2

@@ -11,21 +11,11 @@ HELP = "show a filter design: digital sections, deviation from the analog respon
 
 def add_parser(sub) -> None:
     p = sub.add_parser("response", help=HELP, description=HELP.capitalize() + ".")
-    p.error = _one_line_error(p)
     add_filter_options(p)
     p.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--plot", metavar="FILE.png", help="draw magnitude and phase, analog against digital")
     p.set_defaults(run=run)
-
-
-def _one_line_error(parser):
-    """argparse's error without the usage block: one line naming the option and what it allows, exit 2."""
-
-    def error(message: str):
-        parser.exit(2, f"{parser.prog}: error: {message} (see --help)\n")
-
-    return error
 
 
 def report(d) -> dict:
