@@ -406,7 +406,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         d = pl.choice.design
         filter_source = {"kind": "auto"}
     else:
-        d = presets.check_design(spec, info.rate_hz)
+        d = presets.check_design(spec, info.rate_hz, in_path)
         filter_source = {"kind": "spec", "name": spec.name, "file": spec.source or None}
 
     record = {"settings": settings, "filter_source": filter_source}

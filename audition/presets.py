@@ -232,12 +232,17 @@ def load(path) -> FilterSpec:
     return parse_spec(data, str(path))
 
 
-def check_design(spec: FilterSpec, rate_hz: float):
-    """``spec.design(rate_hz)`` with a parameter error turned into one naming the file."""
+def check_design(spec: FilterSpec, rate_hz: float, path=None):
+    """``spec.design(rate_hz)`` with a parameter error turned into one naming the files.
+
+    ``path`` is the sound file the design is for: its rate sets the limits (Nyquist),
+    so the message names it and the rate, then the plan or preset file if any.
+    """
     try:
         return spec.design(rate_hz)
     except BadParameter as exc:
-        raise BadParameter(f"{spec.source or spec.name}: {exc}") from None
+        where = [f"{os.fspath(path)!r} at {rate_hz:g} Hz" if path is not None else "", spec.source]
+        raise BadParameter(f"{', '.join(w for w in where if w) or spec.name}: {exc}") from None
 
 
 def bundled_folder() -> Path:

@@ -610,7 +610,7 @@ def test_script_plays_the_sequence_through_the_stream(monkeypatch, capsys, clip)
     (["--f0", "5000", "--script", "A:1,D:1"], "LETTER:SECONDS"),
     (["--f0", "30000", "--script", "A:1"], "f0"),
     (["--preset", "no-such-preset", "--script", "A:1"], "no such preset"),
-    (["--f0", "5000", "--plan", "x.toml"], "B is given twice"),
+    (["--f0", "5000", "--plan", "x.toml"], "give the filter one way only"),
     (["--script", "A:1"], "give B a filter"),
     (["--f0", "5000"], "needs a terminal"),  # pytest's stdin is no terminal
     (["--f0", "5000", "--against", "7k", "--script", "A:1"], "F0 or F0:Q"),

@@ -634,7 +634,7 @@ def test_cli_preset_and_plan(capsys, tmp_path):
     (["--f0", "30000", "--as", "coefficients"], "f0=30000.0"),
     (["--f0", "9000", "--as", "sallen-key", "--header", "x.h"], "header='x.h'"),
     (["--as", "series-rlc"], "give a filter"),
-    (["--f0", "9000", "--preset", "cassette-ferric", "--as", "series-rlc"], "give one filter"),
+    (["--f0", "9000", "--preset", "cassette-ferric", "--as", "series-rlc"], "give the filter one way only"),
     (["--preset", "no-such", "--as", "series-rlc"], "preset='no-such'"),
     (["--plan", "/nonexistent/plan.toml", "--as", "series-rlc"], "/nonexistent/plan.toml"),
     (["--f0", "9000", "--as", "coefficients", "--header", "/nonexistent/dir/x.h"], "does not exist"),

@@ -1,8 +1,11 @@
-"""Filter options shared by every subcommand that takes a filter.
+"""Filter options shared by every subcommand that takes a filter, and where a filter comes from.
 
 ``add_filter_options`` adds them to a parser; ``design_from_args`` turns them
 into a :class:`~audition.design.Design` at the rate of the file at hand, so
 an f0 above that file's Nyquist is refused with the limit for that rate.
+``add_source_options`` adds the other ways of giving a filter (``--plan``,
+``--preset`` and, where a command plans, ``--auto``), and ``filter_source`` is
+the one place that decides which way was taken and refuses a mixture.
 """
 
 from __future__ import annotations
@@ -39,7 +42,8 @@ def add_filter_options(parser: argparse.ArgumentParser, *, title: str = "filter"
                    help="one second-order section (repeat for a cascade); F0 alone is first order")
     g.add_argument("--gain-db", type=float, default=0.0, metavar="DB", help="passband gain H0 in dB (default 0)")
     g.add_argument("--highpass", type=float, metavar="HZ", help="add a second-order rumble high-pass at HZ")
-    g.add_argument("--method", choices=METHOD_CHOICES, default="bilinear",
+    # None marks "not given", so a --method mixed with --plan/--preset is caught, not silently dropped
+    g.add_argument("--method", choices=METHOD_CHOICES,
                    help="digitising method: prewarped bilinear (default) or magnitude-matched")
     return g
 
@@ -48,18 +52,99 @@ def has_filter(args: argparse.Namespace) -> bool:
     return getattr(args, "f0", None) is not None or bool(getattr(args, "section", None))
 
 
-def design_from_args(args: argparse.Namespace, rate_hz: float):
-    """The design the filter options describe at ``rate_hz``, or None when none were given."""
-    from audition import design
-
+def _check_combination(args: argparse.Namespace) -> None:
+    """Refuse filter options that contradict each other (their values are checked against a rate later)."""
     if not has_filter(args):
         if args.q is not None or args.alignment is not None or args.order != 2:
             raise BadParameter("--q, --order and --alignment need --f0 HZ")
-        return None
-    if args.section:
+    elif args.section:
         if args.f0 is not None or args.q is not None or args.alignment is not None or args.order != 2:
             raise BadParameter("--section gives the whole cascade: leave out --f0, --q, --order and --alignment")
-        return design.from_sections(args.section, rate_hz, gain_db=args.gain_db, method=args.method,
-                                    highpass_hz=args.highpass)
-    return design.lowpass(args.f0, rate_hz, q=args.q, order=args.order, alignment=args.alignment,
-                          gain_db=args.gain_db, method=args.method, highpass_hz=args.highpass)
+
+
+def design_from_args(args: argparse.Namespace, rate_hz: float):
+    """The design the filter options describe at ``rate_hz``, or None when none were given."""
+    _check_combination(args)
+    spec = spec_from_options(args)
+    return None if spec is None else spec.design(rate_hz)
+
+
+def spec_from_options(args: argparse.Namespace):
+    """The filter options as a rate-free :class:`~audition.presets.FilterSpec`, or None when none were given."""
+    from audition.presets import FilterSpec
+
+    _check_combination(args)
+    if not has_filter(args):
+        return None
+    return FilterSpec("command-line", "filter options given on the command line", f0_hz=args.f0, q=args.q,
+                      order=args.order, alignment=args.alignment, sections=tuple(args.section or ()),
+                      method=args.method or "bilinear", gain_db=args.gain_db, highpass_hz=args.highpass)
+
+
+def no_filter(*, auto: bool = False, what: str = "a filter") -> BadParameter:
+    """The error for a command that needs a filter and was given none."""
+    ways = "--plan FILE.toml, --preset NAME or --auto" if auto else "--plan FILE.toml or --preset NAME"
+    return BadParameter(f"give {what}: --f0 HZ [--q Q | --order N --alignment NAME], --section F0:Q ..., {ways}")
+
+
+def add_source_options(parser: argparse.ArgumentParser, *, auto_help: str | None = None,
+                       title: str = "where the filter comes from") -> argparse._ArgumentGroup:
+    """``--plan`` and ``--preset``, the written-down ways of giving the filter.
+
+    With ``auto_help``, also ``--auto`` (plan the filter from a survey of each
+    file) and the planning options that go with it.
+    """
+    ways = "the filter options, --plan, --preset" + (" or --auto" if auto_help else "")
+    g = parser.add_argument_group(title, f"one of: {ways}")
+    g.add_argument("--plan", metavar="FILE.toml", help="a plan file (from audition plan --save) or any preset file")
+    g.add_argument("--preset", metavar="NAME", help="a preset by name (see audition presets)")
+    if auto_help:
+        from audition.cli.plan import add_plan_options
+
+        g.add_argument("--auto", action="store_true", help=auto_help)
+        add_plan_options(parser, with_auto=True)
+    return g
+
+
+def filter_source(args: argparse.Namespace):
+    """Where the filter comes from: ``(spec, auto)``, at most one of them not None.
+
+    ``spec`` is a :class:`~audition.presets.FilterSpec` from the filter options,
+    ``--plan`` or ``--preset``; ``auto`` the :class:`~audition.pipeline.PlanSettings`
+    of ``--auto``. ``(None, None)`` when no filter was given: the caller decides
+    whether that is an error (:func:`no_filter`).
+
+    Raises
+    ------
+    BadParameter
+        Two ways given at once, an option the chosen way ignores, or a planning
+        option without --auto.
+    """
+    from audition import presets
+    from audition.cli.plan import PLAN_OPTIONS, settings_from_args
+
+    plan_file, preset = getattr(args, "plan", None), getattr(args, "preset", None)
+    auto = bool(getattr(args, "auto", False))
+    given = [name for name, on in (("filter options (--f0/--section)", has_filter(args)), ("--plan", plan_file),
+                                   ("--preset", preset), ("--auto", auto)) if on]
+    if len(given) > 1:
+        raise BadParameter(f"{' and '.join(given)}: give the filter one way only")
+    if hasattr(args, "auto") and not auto:
+        plan_given = [o for o in PLAN_OPTIONS if getattr(args, o, None) is not None]
+        if plan_given:
+            raise BadParameter(f"--{plan_given[0].replace('_', '-')} applies to --auto only")
+    if auto:
+        if args.q is not None or args.alignment is not None or args.order != 2 or args.gain_db != 0.0:
+            raise BadParameter("--auto chooses the filter: leave out --q, --order, --alignment and --gain-db "
+                               "(use --orders to choose the orders searched)")
+        return None, settings_from_args(args)
+    if plan_file or preset:
+        mixed = [o for o, on in (("--q", args.q is not None), ("--order", args.order != 2),
+                                 ("--alignment", args.alignment is not None), ("--gain-db", args.gain_db != 0.0),
+                                 ("--highpass", args.highpass is not None), ("--method", args.method is not None))
+                 if on]
+        if mixed:
+            raise BadParameter(f"{mixed[0]}: the {'plan' if plan_file else 'preset'} gives the whole filter; "
+                               "edit the file (or a copy) instead")
+        return (presets.load(plan_file) if plan_file else presets.find(preset)), None
+    return spec_from_options(args), None

@@ -6,7 +6,7 @@ import json
 import os
 import sys
 
-from audition.cli.filteropts import add_filter_options, has_filter
+from audition.cli.filteropts import add_filter_options, add_source_options
 
 HELP = "play the original and filtered versions through the sound card, switching instantly, loudness-matched"
 
@@ -34,9 +34,7 @@ def add_parser(sub) -> None:
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("input", metavar="IN", nargs="?", help="the sound file (only read)")
     add_filter_options(p, title="filter of B")
-    src = p.add_argument_group("other sources of B and C")
-    src.add_argument("--plan", metavar="FILE.toml", help="B is the filter of a plan file (audition plan --save)")
-    src.add_argument("--preset", metavar="NAME", help="B is a preset's filter (see audition presets)")
+    src = add_source_options(p, title="where the filter of B comes from")
     src.add_argument("--against", metavar="FILTER", help="C, a second candidate: F0 or F0:Q (second-order "
                      "low-pass, same --method), a plan file, or a preset name; with --blind, B and C are compared")
     reg = p.add_argument_group("region and playback")
@@ -75,27 +73,16 @@ def describe_design(d) -> str:
 def design_b(args, rate_hz):
     """(name, design) of B from the filter options, --plan or --preset."""
     from audition import presets
-    from audition.cli.filteropts import design_from_args
-    from audition.errors import BadParameter
+    from audition.cli.filteropts import filter_source, no_filter
 
-    given = [name for name, on in (("filter options", has_filter(args)), ("--plan", args.plan),
-                                   ("--preset", args.preset)) if on]
-    if len(given) > 1:
-        raise BadParameter(f"B is given twice ({' and '.join(given)}); give one of them")
+    spec, _ = filter_source(args)
+    if spec is None:
+        raise no_filter(what="B a filter")
+    d = presets.check_design(spec, rate_hz, args.input)
     if args.plan:
-        d = presets.check_design(presets.load(args.plan), rate_hz)
         return f"plan {os.path.basename(args.plan)} ({describe_design(d)})", d
     if args.preset:
-        spec = presets.find(args.preset)
-        d = presets.check_design(spec, rate_hz)
         return f"preset {spec.name} ({describe_design(d)})", d
-    try:
-        d = design_from_args(args, rate_hz)
-    except BadParameter as exc:
-        raise BadParameter(f"{args.input!r} at {rate_hz:g} Hz: {exc}") from None
-    if d is None:
-        raise BadParameter("give B a filter: --f0 HZ [--q Q | --order N --alignment NAME], --section F0:Q ..., "
-                           "--plan FILE or --preset NAME")
     return describe_design(d), d
 
 
@@ -116,7 +103,7 @@ def design_against(text: str, args, rate_hz):
             raise BadParameter(f"--against {t!r}: F0 or F0:Q in Hz and a plain number (e.g. 7000:0.8), "
                                "a plan file or a preset name") from None
         try:
-            d = design.lowpass(f0, rate_hz, q=q, method=args.method)
+            d = design.lowpass(f0, rate_hz, q=q, method=args.method or "bilinear")
         except BadParameter as exc:
             raise BadParameter(f"--against {t!r} at {rate_hz:g} Hz: {exc}") from None
         return describe_design(d), d

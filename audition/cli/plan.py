@@ -21,19 +21,35 @@ def parse_orders(text: str) -> tuple[int, ...]:
     return orders
 
 
-def add_plan_options(p) -> None:
-    g = p.add_argument_group("planning")
-    g.add_argument("--budget-db", type=float, default=1.0, metavar="B",
+#: The planning options that only mean something to a planner (--method and --highpass are the filter's own).
+PLAN_OPTIONS = ("budget_db", "weighting", "orders", "max_peak_db")
+
+
+def add_plan_options(p, *, with_auto: bool = False) -> None:
+    """The planning options; ``with_auto`` for a command where they go with ``--auto``.
+
+    There --method and --highpass are the filter options' own, and every default is
+    None, meaning "not given", so :func:`audition.cli.filteropts.filter_source` can
+    refuse a planning option given without --auto; :func:`settings_from_args` fills
+    in the defaults.
+    """
+    g = p.add_argument_group("planning (with --auto)" if with_auto else "planning")
+
+    def default(value):
+        return None if with_auto else value
+
+    g.add_argument("--budget-db", type=float, default=default(1.0), metavar="B",
                    help="most programme treble (dB) the filter may take (default 1.0)")
-    g.add_argument("--weighting", choices=("flat", "a", "itu468"), default="itu468",
+    g.add_argument("--weighting", choices=("flat", "a", "itu468"), default=default("itu468"),
                    help="the weighting whose SNR gain is maximised (default itu468)")
-    g.add_argument("--orders", type=parse_orders, default=(2, 4), metavar="2,4",
+    g.add_argument("--orders", type=parse_orders, default=default((2, 4)), metavar="2,4",
                    help="filter orders to search (default 2,4)")
-    g.add_argument("--method", choices=("bilinear", "matched"), default="bilinear",
-                   help="digitising method of the candidates (default bilinear)")
-    g.add_argument("--max-peak-db", type=float, default=1.5, metavar="DB",
+    g.add_argument("--max-peak-db", type=float, default=default(1.5), metavar="DB",
                    help="largest resonant peak a candidate may have (default 1.5 dB: Q up to 1.0 at order 2)")
-    g.add_argument("--highpass", type=float, metavar="HZ", help="add a rumble high-pass at HZ to every candidate")
+    if not with_auto:
+        g.add_argument("--method", choices=("bilinear", "matched"), default="bilinear",
+                       help="digitising method of the candidates (default bilinear)")
+        g.add_argument("--highpass", type=float, metavar="HZ", help="add a rumble high-pass at HZ to every candidate")
 
 
 def add_parser(sub) -> None:
@@ -48,11 +64,18 @@ def add_parser(sub) -> None:
 
 
 def settings_from_args(args):
-    """The :class:`~audition.pipeline.PlanSettings` the planning options in ``args`` describe."""
+    """The :class:`~audition.pipeline.PlanSettings` the planning options in ``args`` describe (defaults where not given)."""
     from audition.pipeline import PlanSettings
 
-    return PlanSettings(budget_db=args.budget_db, weighting=args.weighting, orders=tuple(args.orders),
-                        method=args.method, max_peak_db=args.max_peak_db, highpass_hz=args.highpass)
+    base = PlanSettings()
+
+    def pick(name):
+        value = getattr(args, name, None)
+        return getattr(base, name) if value is None else value
+
+    return PlanSettings(budget_db=pick("budget_db"), weighting=pick("weighting"), orders=tuple(pick("orders")),
+                        method=pick("method"), max_peak_db=pick("max_peak_db"),
+                        highpass_hz=getattr(args, "highpass", None))
 
 
 def make_plan(survey, args):

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import os
 
-from audition.cli.filteropts import add_filter_options
+from audition.cli.filteropts import add_filter_options, add_source_options
 
 HELP = "realise a filter as preferred-value parts (series RLC, Sallen-Key) or DSP coefficients, with the error"
 TARGET_HELP = ("series-rlc: passive R-L-C section (output across C) per second-order section, RC for first order; "
@@ -16,9 +16,7 @@ TARGET_HELP = ("series-rlc: passive R-L-C section (output across C) per second-o
 def add_parser(sub) -> None:
     p = sub.add_parser("realize", help=HELP, description=HELP[0].upper() + HELP[1:] + ".")
     add_filter_options(p)
-    g = p.add_argument_group("or a written-down filter")
-    g.add_argument("--plan", metavar="FILE", help="a plan file (TOML) written by 'audition plan --save'")
-    g.add_argument("--preset", metavar="NAME", help="a preset by name (see 'audition presets')")
+    add_source_options(p)
     p.add_argument("--as", dest="target", metavar="TARGET", help=TARGET_HELP)
     a = p.add_argument_group("analog parts")
     a.add_argument("--series", default="E24", metavar="E12|E24|E96",
@@ -56,22 +54,12 @@ def add_parser(sub) -> None:
 
 def _design(args, rate_hz):
     from audition import presets
-    from audition.cli.filteropts import design_from_args, has_filter
-    from audition.errors import BadParameter
+    from audition.cli.filteropts import filter_source, no_filter
 
-    given = [name for name, on in (("filter options (--f0/--section)", has_filter(args)), ("--plan", args.plan),
-                                   ("--preset", args.preset)) if on]
-    if len(given) > 1:
-        raise BadParameter(f"give one filter, not {' and '.join(given)}")
-    if args.plan:
-        return presets.check_design(presets.load(args.plan), rate_hz)
-    if args.preset:
-        return presets.check_design(presets.find(args.preset), rate_hz)
-    d = design_from_args(args, rate_hz)
-    if d is None:
-        raise BadParameter("give a filter: --f0 HZ [--q Q | --order N --alignment NAME], --section F0:Q ..., "
-                           "--plan FILE or --preset NAME")
-    return d
+    spec, _ = filter_source(args)
+    if spec is None:
+        raise no_filter()
+    return presets.check_design(spec, rate_hz)
 
 
 def _check(args):

@@ -7,7 +7,7 @@ import math
 import sys
 import time
 
-from audition.cli.filteropts import add_filter_options
+from audition.cli.filteropts import add_filter_options, add_source_options, filter_source, no_filter
 from audition.cli.noiseopts import add_noise_options
 
 HELP = "filter a sound file into a new one (the original is never touched), with a JSON sidecar record"
@@ -25,20 +25,8 @@ def add_parser(sub) -> None:
     p.add_argument("input", metavar="IN", help="the sound file to filter (only read)")
     p.add_argument("output", metavar="OUT", help="the new file (same container as IN); OUT.json is written beside it")
     add_filter_options(p)
-    src = p.add_argument_group("where the filter comes from", "one of: the filter options above, --plan, "
-                               "--preset or --auto")
-    src.add_argument("--plan", metavar="FILE.toml", help="a plan file (from audition plan --save) or any preset file")
-    src.add_argument("--preset", metavar="NAME", help="a preset by name (see audition presets)")
-    src.add_argument("--auto", action="store_true", help="survey the input, plan the filter and render it in one "
-                     "go (the plan goes into the sidecar); --method and --highpass then apply to every candidate")
-    g = p.add_argument_group("planning (with --auto)")
-    g.add_argument("--budget-db", type=float, metavar="B",
-                   help="most programme treble (dB) the filter may take (default 1.0)")
-    g.add_argument("--weighting", choices=("flat", "a", "itu468"),
-                   help="the weighting whose SNR gain is maximised (default itu468)")
-    g.add_argument("--orders", type=_parse_orders, metavar="2,4", help="filter orders to search (default 2,4)")
-    g.add_argument("--max-peak-db", type=float, metavar="DB",
-                   help="largest resonant peak a candidate may have (default 1.5 dB)")
+    add_source_options(p, auto_help="survey the input, plan the filter and render it in one go (the plan goes "
+                       "into the sidecar); --method and --highpass then apply to every candidate")
     add_noise_options(p)
     out = p.add_argument_group("output")
     out.add_argument("--subtype", metavar="NAME", help=f"output encoding, one of {', '.join(SUBTYPES)} "
@@ -53,69 +41,7 @@ def add_parser(sub) -> None:
                      "surveys with the automatic noise reference unless noise options are given")
     out.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
     out.add_argument("--quiet", action="store_true", help="no progress bar and no summary (warnings still shown)")
-    # None marks "not given", so a filter option mixed with --plan/--preset is caught, not silently dropped.
-    p.set_defaults(run=run, method=None)
-
-
-def _parse_orders(text):
-    from audition.cli.plan import parse_orders
-
-    return parse_orders(text)
-
-
-PLAN_OPTIONS = ("budget_db", "weighting", "orders", "max_peak_db")
-FILTER_HINT = ("give a filter: --f0 HZ [--q Q | --order N --alignment NAME], --section F0:Q ..., "
-               "--plan FILE.toml, --preset NAME or --auto")
-
-
-def resolve_source(args, info):
-    """Where the filter comes from: ``(spec, auto)``, exactly one of them not None.
-
-    Explicit filter options become a :class:`~audition.presets.FilterSpec` named
-    "command-line"; ``--plan`` and ``--preset`` load one; ``--auto`` gives
-    :class:`~audition.pipeline.PlanSettings`.
-    """
-    from audition import presets
-    from audition.cli.filteropts import design_from_args, has_filter
-    from audition.errors import BadParameter
-    from audition.pipeline import PlanSettings
-
-    given = [name for name, on in (("filter options (--f0/--section)", has_filter(args)), ("--plan", args.plan),
-                                   ("--preset", args.preset), ("--auto", args.auto)) if on]
-    if len(given) > 1:
-        raise BadParameter(f"{' and '.join(given)}: give the filter one way only")
-    if not given:
-        if args.q is not None or args.alignment is not None or args.order != 2:
-            raise BadParameter("--q, --order and --alignment need --f0 HZ")
-        raise BadParameter(FILTER_HINT)
-    plan_given = [o for o in PLAN_OPTIONS if getattr(args, o) is not None]
-    if plan_given and not args.auto:
-        raise BadParameter(f"--{plan_given[0].replace('_', '-')} applies to --auto only")
-    if args.auto:
-        if args.q is not None or args.alignment is not None or args.order != 2 or args.gain_db != 0.0:
-            raise BadParameter("--auto chooses the filter: leave out --q, --order, --alignment and --gain-db "
-                               "(use --orders to choose the orders searched)")
-        return None, PlanSettings(budget_db=1.0 if args.budget_db is None else args.budget_db,
-                                  weighting=args.weighting or "itu468", orders=tuple(args.orders or (2, 4)),
-                                  method=args.method or "bilinear",
-                                  max_peak_db=1.5 if args.max_peak_db is None else args.max_peak_db,
-                                  highpass_hz=args.highpass)
-    if args.plan or args.preset:
-        mixed = [o for o, on in (("--q", args.q is not None), ("--order", args.order != 2),
-                                 ("--alignment", args.alignment is not None), ("--gain-db", args.gain_db != 0.0),
-                                 ("--highpass", args.highpass is not None), ("--method", args.method is not None))
-                 if on]
-        if mixed:
-            raise BadParameter(f"{mixed[0]}: the {'plan' if args.plan else 'preset'} gives the whole filter; "
-                               "edit the file (or a copy) instead")
-        return (presets.load(args.plan) if args.plan else presets.find(args.preset)), None
-    args.method = args.method or "bilinear"
-    try:
-        d = design_from_args(args, info.rate_hz)
-    except BadParameter as exc:
-        # name the file: the limit (Nyquist) comes from its rate
-        raise BadParameter(f"{info.path!r} at {info.rate_hz:g} Hz: {exc}") from None
-    return presets.FilterSpec.from_design(d, "command-line", "filter options given to audition render"), None
+    p.set_defaults(run=run)
 
 
 class ProgressBar:
@@ -205,7 +131,9 @@ def run(args) -> int:
     from audition.pipeline import render_job
 
     info = audiofile.info(args.input)
-    spec, auto = resolve_source(args, info)
+    spec, auto = filter_source(args)
+    if spec is None and auto is None:
+        raise no_filter(auto=True)
     noise = noise_from_args(args) if (gave_noise(args) or auto is not None or args.report) else None
     bar = None
     if not args.quiet and not args.json and sys.stderr.isatty() and info.seconds > PROGRESS_MIN_SECONDS:
