@@ -25,7 +25,13 @@ conversion (checked in tests/test_audiofile.py). libsndfile 1.2 also converts
 float64 exactly on the LSB grid (``k / 2**(bits-1)`` times ``2**(bits-1)``), but
 it spends a multiply, a rounding and a range check per sample on it.
 Float outputs are written as computed: they carry values beyond full scale
-without loss, so those are counted but kept.
+without loss, so those are counted but kept. They are written without
+libsndfile's PEAK chunk, which would stamp the wall-clock time into the file:
+the same samples give the same bytes.
+
+Every writer meters what it writes: the sample peak and the true peak
+(:mod:`audition.truepeak`, ITU-R BS.1770-4 Annex 2), both on the values in the
+file (the dithered, rounded, saturated integers; a FLOAT file's float32 values).
 """
 
 from __future__ import annotations
@@ -44,6 +50,7 @@ import numpy as np
 import soundfile as sf
 
 from audition.errors import BadInputFile, BadParameter, OutputRefused
+from audition.truepeak import TruePeakMeter
 
 #: Output word length of each integer subtype, bits.
 INTEGER_BITS = {"PCM_S8": 8, "PCM_U8": 8, "PCM_16": 16, "PCM_24": 24, "PCM_32": 32}
@@ -65,6 +72,8 @@ _EXTENSIONS = {
 }
 # Containers whose sizes are 32-bit: 4 GiB at most, headers included.
 _SIZE_LIMITED = {"WAV": 2**32 - 1, "WAVEX": 2**32 - 1, "AIFF": 2**32 - 1}
+# libsndfile's sf_command for leaving out (SF_FALSE) or adding the PEAK chunk of float files (sndfile.h).
+_SFC_SET_ADD_PEAK_CHUNK = 0x1050
 _SUBTYPE_BYTES = {"PCM_S8": 1, "PCM_U8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8}
 
 
@@ -394,16 +403,28 @@ class WriteStats:
         Sample peak before saturation; above 1.0 when samples were clipped.
     clipped_samples : int
         Samples beyond full scale: saturated for integer outputs, kept for float ones.
+    true_peak : float
+        True peak of the written output (ITU-R BS.1770-4 Annex 2, 4x oversampled; see
+        :mod:`audition.truepeak`), full scale 1.0, measured on the values in the file:
+        after dither, rounding and saturation for integer outputs, after rounding to
+        float32 for FLOAT ones. Never below ``peak``.
+    true_peak_dbtp : float or None
+        ``20*log10(true_peak)``, dBTP (0 dBTP = full scale); None for digital silence.
     """
 
     frames: int
     peak: float
     clipped_samples: int
     unclipped_peak: float
+    true_peak: float = 0.0
 
     @property
     def peak_dbfs(self) -> float | None:
         return 20.0 * math.log10(self.peak) if self.peak > 0 else None
+
+    @property
+    def true_peak_dbtp(self) -> float | None:
+        return 20.0 * math.log10(self.true_peak) if self.true_peak > 0 else None
 
     @property
     def trim_db(self) -> float:
@@ -470,6 +491,15 @@ class Quantiser:
         peak, unclipped_peak : float
             Sample peak after and before saturation, full scale 1.0.
         """
+        t, clipped, peak, unclipped = self.levels(x)
+        return self.left_justified(t), clipped, peak, unclipped
+
+    def levels(self, x: np.ndarray) -> tuple[np.ndarray, int, float, float]:
+        """Dither, round and saturate a float64 block; the output integers ``k`` as float64.
+
+        Same as :meth:`__call__` but before the conversion to int32: ``k`` counts LSBs
+        (full scale is ``2**(bits-1)``), so ``k / 2**(bits-1)`` are the written values.
+        """
         s = self.scale
         # order="C": sosfilt hands back a frame-major view in column order; one C-ordered
         # array here keeps every later pass contiguous and spares the writer a transposing copy.
@@ -488,11 +518,15 @@ class Quantiser:
             np.clip(t, -s, s - 1, out=t)
         unclipped = max(hi, -lo) / s
         peak = max(min(hi, s - 1), -max(lo, -s)) / s
+        return t, clipped, peak, unclipped
+
+    def left_justified(self, t: np.ndarray) -> np.ndarray:
+        """The integers of :meth:`levels` as int32 ``k * 2**(32-bits)``, as libsndfile takes them."""
         # left-justify and convert in one pass: integers times 2**(32-bits) stay exact in float64
-        # and within int32 after the saturation above
+        # and within int32 after the saturation in levels()
         q = np.empty(t.shape, dtype=np.int32)
         np.multiply(t, float(2 ** (32 - self.bits)), out=q, casting="unsafe")
-        return q, clipped, peak, unclipped
+        return q
 
 
 class AtomicWriter:
@@ -548,6 +582,11 @@ class AtomicWriter:
         try:
             self._sf = sf.SoundFile(self._tmp.fd, mode="w", samplerate=int(round(rate_hz)), channels=channels,
                                     format=format, subtype=subtype, closefd=False)
+            if subtype in FLOAT_SUBTYPES:
+                # libsndfile stamps the wall-clock time into a float file's PEAK chunk, so two
+                # writes of the same samples would differ; leave the chunk out (the same inputs
+                # give the same bytes). sndfile.h: SFC_SET_ADD_PEAK_CHUNK = 0x1050, SF_FALSE = 0.
+                sf._snd.sf_command(self._sf._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
             self.metadata_written = []
             for k, v in (metadata or {}).items():
                 if k in METADATA_FIELDS and v:
@@ -562,6 +601,7 @@ class AtomicWriter:
                 raise OutputRefused(f"{self.path!r}: cannot be written as {format} {subtype} ({exc})") from None
             raise
         self.channels = channels
+        self.meter = TruePeakMeter(channels)
         self._frames = 0
         self._peak = 0.0
         self._unclipped = 0.0
@@ -583,14 +623,19 @@ class AtomicWriter:
     def quantise(self, x: np.ndarray) -> np.ndarray:
         """Dither, round and saturate a block for this output; update the counts. Returns what to write."""
         if self.quantiser is not None:
-            y, clipped, peak, unclipped = self.quantiser(x)
+            t, clipped, peak, unclipped = self.quantiser.levels(x)
+            # the true peak of the integers written, in LSBs (scaled to full scale in stats)
+            self.meter.process(t, sample_peak=peak * self.quantiser.scale)
+            y = self.quantiser.left_justified(t)
         else:
-            y = x
             a = float(np.max(np.abs(x), initial=0.0))
             clipped = int(np.count_nonzero(np.abs(x) > 1.0)) if a > 1.0 else 0
-            # a FLOAT file stores float32: its peak is that of the rounded values
+            # a FLOAT file stores float32: its peaks are those of the rounded values, and
+            # libsndfile's double-to-float conversion is this same round-to-nearest cast
+            y = x.astype(np.float32) if self.subtype == "FLOAT" else x
             peak = float(np.float32(a)) if self.subtype == "FLOAT" else a
             unclipped = peak
+            self.meter.process(y, sample_peak=peak)
         self._clipped += clipped
         self._peak = max(self._peak, peak)
         self._unclipped = max(self._unclipped, unclipped)
@@ -616,12 +661,16 @@ class AtomicWriter:
 
     @property
     def stats(self) -> WriteStats:
-        return WriteStats(self._frames, self._peak, self._clipped, self._unclipped)
+        """What was written so far (the true peak is complete once :meth:`finish` has run)."""
+        scale = self.quantiser.scale if self.quantiser is not None else 1.0
+        return WriteStats(self._frames, self._peak, self._clipped, self._unclipped, self.meter.peak / scale)
 
     def finish(self) -> None:
         """Close the sound file and flush it to the disk (the output is not in place yet)."""
         if self._state != "open":
             return
+        # the crests between the last samples need the (silent) samples after them
+        self.meter.finish()
         try:
             self._sf.close()
             self._tmp.sync()

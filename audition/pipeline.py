@@ -305,6 +305,7 @@ def render_summary(r, d) -> dict:
         "dither": {"kind": "tpdf" if r.dither else "none", "peak_lsb": 1.0 if r.dither else 0.0,
                    "bits": r.dither_bits, "seed": r.seed},
         "peak_dbfs": r.peak_dbfs,
+        "true_peak_dbtp": r.true_peak_dbtp,
         "clipped_samples": r.clipped_samples,
         "trim_db": r.trim_db,
         "input_sha256": r.input_sha256,

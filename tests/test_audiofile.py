@@ -407,3 +407,61 @@ def test_sidecar_is_written_atomically(tmp_path):
     with pytest.raises(ValueError):
         audiofile.write_sidecar(tmp_path / "n.json", {"x": float("nan")})  # JSON has no NaN (RFC 8259)
     assert folder_listing(tmp_path) == ["o.wav.json"]
+
+
+# ---------------------------------------------------------------------------
+# true peak of what is written; reproducible float files
+# ---------------------------------------------------------------------------
+
+
+def riff_chunk_ids(data: bytes) -> list[bytes]:
+    """The ids of a RIFF/WAVE file's top-level chunks (Microsoft RIFF layout: id, 32-bit LE size, padded to even)."""
+    assert data[:4] == b"RIFF" and data[8:12] == b"WAVE"
+    ids, i = [], 12
+    while i + 8 <= len(data):
+        cid, size = data[i:i + 4], struct.unpack("<I", data[i + 4:i + 8])[0]
+        ids.append(cid)
+        i += 8 + size + (size & 1)
+    return ids
+
+
+@pytest.mark.parametrize("subtype", ["PCM_16", "PCM_24", "FLOAT", "DOUBLE"])
+def test_true_peak_is_that_of_the_samples_in_the_file(tmp_path, subtype):
+    # Reference: the file read back (the stdlib wave module for integers, no libsndfile), then
+    # scipy.signal.upfirdn with the ITU-R BS.1770-4 Annex 2 filter over the whole signal
+    # (tests/test_truepeak.py). The writer meters the dithered, rounded, saturated integers as
+    # written, and a FLOAT file's float32 values, so the two agree to rounding.
+    from tests.test_truepeak import fs4_sine, upfirdn_peak
+
+    rng = np.random.default_rng(5)
+    x = 0.9 * fs4_sine(5000)[:, None] * [1.0, 0.5] + 0.01 * rng.standard_normal((5000, 2))
+    x[4000:4010] = [1.3, -1.3]  # beyond full scale: saturated in integer files, kept in float ones
+    p = tmp_path / "t.wav"
+    stats = audiofile.write_clip(p, x, 48000, subtype, seed=2)
+    if subtype in audiofile.INTEGER_BITS:
+        ints, bits = read_wav_ints(p)
+        y = ints / 2.0 ** (bits - 1)
+    else:
+        y, _ = audiofile.read_clip(p)
+    assert stats.true_peak == pytest.approx(upfirdn_peak(y), rel=1e-12)
+    assert stats.true_peak >= stats.peak and stats.true_peak_dbtp == pytest.approx(20 * np.log10(stats.true_peak))
+    assert stats.clipped_samples == 20
+    # the ring of the saturated step goes above full scale between samples (an inter-sample over)
+    assert stats.true_peak_dbtp > 0.0
+
+
+@pytest.mark.parametrize("fmt,ext,subtype", [("WAV", ".wav", "FLOAT"), ("WAV", ".wav", "DOUBLE"),
+                                             ("AIFF", ".aiff", "FLOAT"), ("CAF", ".caf", "DOUBLE")])
+def test_float_files_are_byte_reproducible(tmp_path, fmt, ext, subtype):
+    # libsndfile would write a PEAK chunk with the wall-clock time into float files (common practice
+    # of the format, no source): the writer leaves it out, so the same samples give the same bytes.
+    x = np.random.default_rng(1).uniform(-1, 1, (3000, 2))
+    a, b = tmp_path / ("a" + ext), tmp_path / ("b" + ext)
+    audiofile.write_clip(a, x, 44100, subtype, format=fmt)
+    audiofile.write_clip(b, x, 44100, subtype, format=fmt)
+    assert a.read_bytes() == b.read_bytes()
+    if fmt == "WAV":
+        assert b"PEAK" not in riff_chunk_ids(a.read_bytes())
+    # the samples are still exactly those given (float32 rounding for FLOAT)
+    y, _ = audiofile.read_clip(a)
+    np.testing.assert_array_equal(y, x.astype(np.float32) if subtype == "FLOAT" else x)

@@ -8,7 +8,6 @@ module and ``struct`` (stdlib) to read and build WAV files without libsndfile.
 from __future__ import annotations
 
 import datetime as dt
-import errno
 import hashlib
 import json
 import os
@@ -16,7 +15,6 @@ import resource
 import signal
 import subprocess
 import sys
-import wave
 
 import numpy as np
 import pytest
@@ -165,6 +163,24 @@ def test_same_seed_same_bytes_whatever_the_blocks(tmp_path):
     assert outs[3] != outs[0]
 
 
+@pytest.mark.parametrize("subtype", ["FLOAT", "DOUBLE"])
+def test_two_float_renders_give_identical_bytes(tmp_path, subtype):
+    # "The same inputs give the same bytes" (project convention) holds for float outputs too:
+    # libsndfile's time-stamped PEAK chunk is left out (RIFF chunk list checked directly).
+    from tests.test_audiofile import riff_chunk_ids
+
+    src = tmp_path / "in.wav"
+    audiofile.write_clip(src, signal_block(9000, 2), 48000, subtype)
+    d = DESIGNS["second order"](48000.0)
+    outs = []
+    for i in range(2):
+        out = tmp_path / f"o{i}.wav"
+        render.render_file(src, out, d, block_frames=4097 if i else 65536)
+        outs.append(out.read_bytes())
+    assert outs[0] == outs[1]
+    assert b"PEAK" not in riff_chunk_ids(outs[0])
+
+
 # ---------------------------------------------------------------------------
 # formats, metadata, the input untouched
 # ---------------------------------------------------------------------------
@@ -277,6 +293,42 @@ def test_sidecar_records_what_was_done(tmp_path, capsys):
     assert rec["peak_dbfs"] == pytest.approx(20 * np.log10(np.abs(y).max()), abs=1e-9)
     assert j["peak_dbfs"] == rec["peak_dbfs"] and rec["clipped_samples"] == 0
     assert j["sections"] == rec["design"]["sections"] and j["frames"] == 10_000
+
+
+def test_true_peak_of_the_output_in_json_sidecar_and_summary(tmp_path, capsys):
+    # A fs/4 sine sampled 45 degrees from its crests at -1 dBFS sample level has crests 3 dB higher
+    # (ITU-R BS.1770-4 Annex 2, the method's point): inter-sample overs with no sample clipped.
+    # Reference for the reading: the output file read back with the stdlib wave module, then
+    # scipy.signal.upfirdn with the Annex 2 filter (tests/test_truepeak.py).
+    from tests.test_truepeak import upfirdn_peak
+
+    src, out = tmp_path / "in.wav", tmp_path / "out.wav"
+    # the input leads by the filter's phase at fs/4 (scipy.signal.sosfreqz), so the output's samples
+    # sit at 45 degrees; a 200-sample fade-in keeps the onset transient small
+    d = design.lowpass(20000.0, 48000.0, q=0.7071)
+    h = scipy.signal.sosfreqz(d.sos, worN=[12000.0], fs=48000.0)[1][0]
+    n = np.arange(20_000)
+    x = 10 ** (-1 / 20) * np.sqrt(2) / abs(h) * np.sin(np.pi / 2 * n + np.pi / 4 - np.angle(h))
+    x *= np.minimum(1.0, n / 200.0)
+    x = x[:, None] * [1.0, 0.25]
+    audiofile.write_clip(src, x, 48000, "DOUBLE")  # a float input carries its crests beyond full scale
+    assert main(["render", str(src), str(out), "--f0", "20000", "--subtype", "PCM_24", "--json"]) == 0
+    j = json.loads(capsys.readouterr().out)
+    rec = json.loads(open(j["sidecar"]).read())
+    ints, bits = read_wav_ints(out)
+    y = ints / 2.0 ** (bits - 1)
+    ref = 20 * np.log10(upfirdn_peak(y))
+    assert j["true_peak_dbtp"] == rec["true_peak_dbtp"] == pytest.approx(ref, abs=1e-9)
+    assert j["peak_dbfs"] == pytest.approx(20 * np.log10(np.abs(y).max()), abs=1e-9)  # still the sample peak
+    assert j["clipped_samples"] == 0 and j["peak_dbfs"] < 0.0 < j["true_peak_dbtp"]
+    # 3.01 dB between samples and crests, read within 0.25 dB (tests/test_truepeak.py)
+    assert j["peak_dbfs"] == pytest.approx(-1.0, abs=0.01)
+    assert j["true_peak_dbtp"] == pytest.approx(-1.0 + 3.0103, abs=0.25)
+    assert "ITU-R BS.1770-4" in rec["true_peak_kind"]
+    assert main(["render", str(src), str(tmp_path / "o2.wav"), "--f0", "20000", "--subtype", "PCM_24"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert any(ln.startswith("  sample peak") and f"{j['peak_dbfs']:+.2f} dBFS" in ln for ln in lines)
+    assert any(ln.startswith("  true peak") and f"{j['true_peak_dbtp']:+.2f} dBTP" in ln for ln in lines)
 
 
 def test_summary_names_sample_peak_and_no_progress_bar_off_a_terminal(tmp_path, capsys):

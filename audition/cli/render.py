@@ -88,6 +88,8 @@ def format_summary(j: dict) -> str:
     else:
         dither = "none (float output)"
     peak = "digital silence" if j["peak_dbfs"] is None else f"{j['peak_dbfs']:+.2f} dBFS"
+    tp = j.get("true_peak_dbtp")
+    true_peak = "digital silence" if tp is None else f"{tp:+.2f} dBTP"
     return "\n".join([
         f"rendered {j['input']} -> {j['output']}",
         f"  {j['format']} {j['subtype']}, {j['rate']:g} Hz, {j['channels']} channel(s), "
@@ -97,6 +99,7 @@ def format_summary(j: dict) -> str:
         f"  dither: {dither}",
         f"  sample peak of the output: {peak} (full scale = 0 dBFS), {j['clipped_samples']:,} sample(s) "
         "beyond full scale",
+        f"  true peak of the output:   {true_peak} (ITU-R BS.1770-4 Annex 2, 4x oversampled; full scale = 0 dBTP)",
         f"  took {j['seconds']:.2f} s ({j['realtime_factor']:,.0f}x real time)",
         f"  record: {j['sidecar']}" if j["sidecar"] else "  record: none",
     ] + _figures_lines(j))

@@ -1,0 +1,367 @@
+"""True-peak level of a signal, streamed block by block (ITU-R BS.1770-4, Annex 2).
+
+The sample peak misses the crests that fall between samples: a full-scale sine at a
+quarter of the sampling rate, sampled at 45 degrees, has every sample at 0.7071 of
+its crest and reads -3.01 dBFS. A converter reconstructs the crest. Annex 2 of
+ITU-R BS.1770-4 estimates it by oversampling four times with a 48-tap interpolating
+filter (the order-48, four-phase FIR it tabulates) and taking the largest magnitude.
+
+What this meter computes
+------------------------
+For every input sample index ``i`` and phase ``k`` (0..3)::
+
+    y_k[i] = sum_{j=0}^{11} h_k[j] * x[i - j]                (BS.1770-4 Annex 2, 4x polyphase FIR)
+
+with ``h_k`` the tabulated phase ``k``, ``x`` zero before the first sample and, once
+:meth:`TruePeakMeter.finish` is called, zero for 11 samples after the last (so the
+output is the full convolution of the zero-stuffed signal with the 48-tap filter, as
+:func:`scipy.signal.upfirdn` computes it). The reading is::
+
+    true peak = max( max_i |x[i]|, max_{i,k} |y_k[i]| )
+
+The Annex reads only the oversampled stream. The tabulated filter has even length
+(48, centred on tap 23.5), so its four phases fall nominally 1/8, 3/8, 5/8 and 7/8
+of a sample after an input sample and none on it; the input samples are points of
+the same reconstructed waveform, so they are included: the reading is never below
+the sample peak.
+
+Oversampling ratio
+------------------
+The Annex asks for 4x at 48 kHz (an oversampled rate of at least 192 kHz) and
+permits higher ratios; at 88.2/96 kHz 2x would do and above that none. This meter
+uses the tabulated 4x filter at every rate: the Annex tabulates no 2x filter, one
+filter means one code path and one set of tests, the interpolator is defined in
+normalised frequency (so its accuracy at ``f/fs`` is the same at any rate), and
+with the screen below the cost is set by the number of windows near the running
+peak, not by the number of phases. At 96 kHz and above the reading is therefore
+slightly more accurate than the Annex requires, never less.
+
+Speed: an exact screen
+----------------------
+A full 4x pass costs 48 multiply-adds per sample, more than the rest of a render.
+Most windows cannot raise the running maximum ``T``, and a bound proves it.
+Writing each sample of the window as the centre sample plus the first differences
+between them (summation by parts)::
+
+    y_k[i] = g_k * x[i - m_k] + sum_{l} c_{k,l} * (x[i-l] - x[i-l-1])
+    |y_k[i]| <= |g_k| * |x[i - m_k]| + (sum_l |c_{k,l}|) * max_l |x[i-l] - x[i-l-1]|
+
+where ``g_k = sum_j h_k[j]`` (the phase's gain at DC), ``m_k`` the lag of its largest
+tap (6 for phases 0 and 1, 5 for phases 2 and 3) and ``c_{k,l}`` partial sums of
+``h_k`` (computed in :func:`_screen_constants`, not typed in). For the tabulated
+filter ``max |g_k| = 1.0016`` and ``max sum |c| = 0.861``. So::
+
+    B[i] = 1.0016 * max(|x[i-6]|, |x[i-5]|) + 0.861 * max of |first differences| in the window
+
+bounds every phase of window ``i``. Only windows with ``B[i] >= T`` are gathered and
+interpolated (``T`` starts each block at the larger of the running maximum and the
+block's sample peak). This is a proof, not a guess: the reading equals the full
+computation (tests/test_truepeak.py checks equality on random, tonal and
+block-split signals). The plainer bound ``sum_j |h_k[j]| * max|x|`` is loose by a
+factor of two near every smooth crest (``sum |h_1| = 2.02``); the difference form is
+tight there, where a band-limited signal's differences are small. A steady pure tone
+has every crest at the peak and still needs most of its crests interpolated.
+
+References
+----------
+Recommendation ITU-R BS.1770-4 (10/2015), "Algorithms to measure audio programme
+loudness and true-peak audio level", Annex 2 (true-peak level), and its table of
+the order-48, 4-phase FIR interpolating filter.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from audition.errors import BadParameter
+
+#: The interpolating filter of ITU-R BS.1770-4 Annex 2 (order 48, four phases of
+#: 12 taps), one row per phase as the Recommendation tabulates its columns. Values
+#: checked against several independent public transcriptions of the table, which
+#: agree digit for digit; the prototype is symmetric (phase 3 is phase 0 reversed,
+#: phase 2 is phase 1 reversed), which tests/test_truepeak.py asserts.
+ANNEX2_PHASES = np.array([
+    [0.0017089843750, 0.0109863281250, -0.0196533203125, 0.0332031250000, -0.0594482421875, 0.1373291015625,
+     0.9721679687500, -0.1022949218750, 0.0476074218750, -0.0266113281250, 0.0148925781250, -0.0083007812500],
+    [-0.0291748046875, 0.0292968750000, -0.0517578125000, 0.0891113281250, -0.1665039062500, 0.4650878906250,
+     0.7797851562500, -0.2003173828125, 0.1015625000000, -0.0582275390625, 0.0330810546875, -0.0189208984375],
+    [-0.0189208984375, 0.0330810546875, -0.0582275390625, 0.1015625000000, -0.2003173828125, 0.7797851562500,
+     0.4650878906250, -0.1665039062500, 0.0891113281250, -0.0517578125000, 0.0292968750000, -0.0291748046875],
+    [-0.0083007812500, 0.0148925781250, -0.0266113281250, 0.0476074218750, -0.1022949218750, 0.9721679687500,
+     0.1373291015625, -0.0594482421875, 0.0332031250000, -0.0196533203125, 0.0109863281250, 0.0017089843750],
+])
+ANNEX2_PHASES.setflags(write=False)
+#: Oversampling ratio (phases) and taps per phase.
+FACTOR, TAPS = ANNEX2_PHASES.shape
+#: Samples of the previous block each window still needs.
+HISTORY = TAPS - 1
+
+# Relative slack on the screen's comparison: floating-point rounding of the bound and
+# of the interpolated values is below 1e-14 of the window's largest sample, which is
+# never above T (T includes the sample peak); 1e-9 leaves a wide margin.
+_SLACK = 1e-9
+
+
+def annex2_prototype() -> np.ndarray:
+    """The 48-tap prototype low-pass of Annex 2: ``h[4*j + k] = phase_k[j]`` (for :func:`scipy.signal.upfirdn`)."""
+    return ANNEX2_PHASES.T.reshape(-1).copy()
+
+
+def _screen_constants(phases: np.ndarray) -> tuple[float, float, tuple[int, ...]]:
+    """Constants of the difference bound: max |phase gain|, max sum |c|, and each phase's centre lag.
+
+    For phase ``h`` and centre lag ``m``, with ``e_l = x[i-l] - x[i-l-1]`` (l = 0..10)::
+
+        x[i-j] = x[i-m] + sum_{l=j}^{m-1} e_l      (j < m)
+        x[i-j] = x[i-m] - sum_{l=m}^{j-1} e_l      (j > m)
+
+    so ``y = (sum_j h[j]) x[i-m] + sum_l c_l e_l`` with ``c`` accumulated below. The
+    centre that minimises ``sum |c|`` is chosen per phase.
+    """
+    gains, sums, centres = [], [], []
+    for h in phases:
+        best = None
+        for m in range(len(h)):
+            c = np.zeros(len(h) - 1)
+            for j, hj in enumerate(h):
+                if j < m:
+                    c[j:m] += hj
+                elif j > m:
+                    c[m:j] -= hj
+            s = float(np.abs(c).sum())
+            if best is None or s < best[0]:
+                best = (s, m)
+        sums.append(best[0])
+        centres.append(best[1])
+        gains.append(abs(float(h.sum())))
+    # rounded up a little so the constants, once in floating point, are never below the exact ones
+    return max(gains) * (1 + 1e-12), max(sums) * (1 + 1e-12), tuple(centres)
+
+
+_GAIN, _DIFF, _CENTRES = _screen_constants(ANNEX2_PHASES)
+# The screen takes the larger of the two centre samples (lags 5 and 6); it is valid only if every
+# phase's centre is one of them (true of the tabulated filter; checked here so a changed table cannot
+# silently break the proof).
+assert set(_CENTRES) <= {5, 6}, _CENTRES
+# Column ``col`` of a gathered window is x[i - (11 - col)], oldest first: the taps reversed.
+_TAPS_BY_COLUMN = np.ascontiguousarray(ANNEX2_PHASES[:, ::-1].T)  # (12, 4)
+# The plain bound's constant: the largest sum |h_k| (2.02, phases 1 and 2).
+_ABS_SUM = float(np.abs(ANNEX2_PHASES).sum(axis=1).max()) * (1 + 1e-12)
+
+
+def interpolate_windows(windows: np.ndarray) -> np.ndarray:
+    """The four interpolated values of each 12-sample window.
+
+    Parameters
+    ----------
+    windows : np.ndarray, float64, (n, 12)
+        Row ``r`` holds ``x[i-11] .. x[i]``, oldest first.
+
+    Returns
+    -------
+    np.ndarray, (n, 4)
+        ``y_k[i] = sum_j h_k[j] x[i-j]`` for k = 0..3 (BS.1770-4 Annex 2).
+
+    Notes
+    -----
+    Summed in a fixed order, one tap at a time, with element-wise operations only
+    (no BLAS, whose order of summation may depend on the number of rows): a window
+    gives bit-for-bit the same values whichever other windows are evaluated with it.
+    That is what lets the screened meter equal the full computation exactly.
+    """
+    w = np.asarray(windows, dtype=np.float64)
+    y = w[:, 0:1] * _TAPS_BY_COLUMN[0]
+    for col in range(1, TAPS):
+        y += w[:, col:col + 1] * _TAPS_BY_COLUMN[col]
+    return y
+
+
+class TruePeakMeter:
+    """A streaming true-peak meter (ITU-R BS.1770-4 Annex 2, 4x), state carried across blocks.
+
+    Parameters
+    ----------
+    channels : int
+    screen : bool
+        Interpolate only the windows the bound cannot rule out (default True). False
+        interpolates every window; the reading is the same, bit for bit, only slower.
+
+    Attributes
+    ----------
+    peak : float
+        Largest magnitude so far, in the units of the samples handed in (1.0 = full
+        scale for float samples), the input samples included.
+    windows_interpolated : int
+        Windows gathered and interpolated so far (for measuring the screen).
+    windows_total : int
+        Windows seen so far (one per input sample and channel, plus the flush).
+
+    Notes
+    -----
+    Each block is joined to the last 11 samples of the one before, so every window
+    is evaluated once whatever the block sizes. Call :meth:`finish` after the last
+    block: it feeds 11 zero samples, so the crests between the last samples (and the
+    ring of the file's end into silence) are measured too.
+
+    Examples
+    --------
+    A full-scale sine at a quarter of the rate, sampled 45 degrees from its crests:
+
+    >>> import numpy as np
+    >>> x = np.sin(np.pi / 2 * np.arange(4800) + np.pi / 4)
+    >>> m = TruePeakMeter(1)
+    >>> m.process(x[:2001]); m.process(x[2001:]); m.finish()
+    >>> print(f"samples {20 * np.log10(np.abs(x).max()):+.2f} dBFS, true peak {m.peak_dbtp:+.2f} dBTP")
+    samples -3.01 dBFS, true peak +0.08 dBTP
+    """
+
+    def __init__(self, channels: int, *, screen: bool = True):
+        if int(channels) < 1:
+            raise BadParameter(f"channels={channels!r}: must be at least 1")
+        self.channels = int(channels)
+        self.screen = bool(screen)
+        self.peak = 0.0
+        self.windows_interpolated = 0
+        self.windows_total = 0
+        self._scratch = None
+        self._finished = False
+
+    @property
+    def peak_dbtp(self) -> float | None:
+        """``20*log10(peak)``, dB true peak (0 dBTP = full scale); None for digital silence."""
+        return 20.0 * math.log10(self.peak) if self.peak > 0 else None
+
+    def process(self, block, *, sample_peak: float | None = None) -> None:
+        """Measure one (frames, channels) block (1-D for one channel).
+
+        Parameters
+        ----------
+        block : array_like
+            Samples in any real dtype (integers are fine: the reading is in their units).
+        sample_peak : float, optional
+            ``max |block|`` when the caller already knows it (saves a pass).
+        """
+        if self._finished:
+            raise BadParameter("a finished TruePeakMeter takes no more blocks")
+        x = np.asarray(block)
+        if x.ndim == 1:
+            x = x[:, None]
+        if x.ndim != 2 or x.shape[1] != self.channels:
+            raise BadParameter(f"block of shape {np.shape(block)!r} for a {self.channels}-channel meter")
+        n = len(x)
+        if n == 0:
+            return
+        buf = self._buffers(n)
+        # the stream: 11 samples of history, then the block (float64, frames x channels)
+        xx = buf.xx[:n + HISTORY]
+        xx[HISTORY:] = x
+        a = np.abs(xx, out=buf.a[:n + HISTORY])
+        self.windows_total += n * self.channels
+        if sample_peak is None:
+            sample_peak = float(a[HISTORY:].max())
+        t = max(self.peak, float(sample_peak))
+        if self.screen:
+            cand = self._candidates(buf, n, t)
+        else:
+            cand = np.divmod(np.arange(n * self.channels), self.channels)
+        if len(cand[0]):
+            k, ch = cand
+            windows = xx[k[:, None] + np.arange(TAPS), ch[:, None]]
+            y = interpolate_windows(windows)
+            self.windows_interpolated += len(k)
+            t = max(t, float(np.abs(y).max()))
+        self.peak = t
+        # the last 11 samples are the next block's history (a copy: they may overlap when n < 11)
+        buf.xx[:HISTORY] = xx[n:].copy() if n < HISTORY else xx[n:]
+
+    def _buffers(self, n: int) -> "_Scratch":
+        """Work arrays for a block of ``n`` frames, kept between blocks.
+
+        A render hands over blocks of one size; allocating a dozen 1 MiB arrays per
+        block made the kernel map and unmap them each time (measured: +0.6 s of system
+        time per 5 minutes of 48 kHz stereo), so they are allocated once.
+        """
+        buf = self._scratch
+        if buf is None or len(buf.xx) < n + HISTORY:
+            history = buf.xx[:HISTORY].copy() if buf is not None else np.zeros((HISTORY, self.channels))
+            buf = self._scratch = _Scratch(n + HISTORY, self.channels)
+            buf.xx[:HISTORY] = history
+        return buf
+
+    def _candidates(self, buf: "_Scratch", n: int, t: float):
+        """(window, channel) indices whose bound reaches ``t``; window k ends at stream index k + 11."""
+        xx, a = buf.xx[:n + HISTORY], buf.a[:n + HISTORY]
+        threshold = t * (1.0 - _SLACK)
+        # whole block first: no window exceeds sum|h| * max|x| (the plain bound, one reduction)
+        if _ABS_SUM * float(a.max()) < threshold:
+            return (np.zeros(0, dtype=np.intp),) * 2
+        # |first differences|; window k uses d[k .. k+10] (its 11 differences)
+        d = np.subtract(xx[1:], xx[:-1], out=buf.d[:n + HISTORY - 1])
+        np.abs(d, out=d)
+        big = _sliding_max(d, HISTORY, buf.s1, buf.s2)  # (n, channels)
+        # the centre samples x[i-6], x[i-5] of window k (i = k + 11) are a[k+5], a[k+6];
+        # bound/_GAIN = max(centres) + (_DIFF/_GAIN) * big, compared with threshold/_GAIN
+        big *= _DIFF / _GAIN
+        big += np.maximum(a[5:5 + n], a[6:6 + n], out=buf.bound[:n])
+        mask = np.greater_equal(big, threshold / _GAIN, out=buf.mask[:n])
+        # flat indices of a C-ordered (frames, channels) array: cheaper than a 2-D nonzero
+        return np.divmod(np.flatnonzero(mask), self.channels)
+
+    def finish(self) -> None:
+        """Feed the 11 zero samples after the end (measures the last crests); then no more blocks."""
+        if not self._finished:
+            self.process(np.zeros((HISTORY, self.channels)), sample_peak=0.0)
+            self._finished = True
+
+
+class _Scratch:
+    """The work arrays of one meter, ``rows`` frames by ``channels``."""
+
+    def __init__(self, rows: int, channels: int):
+        self.xx = np.zeros((rows, channels))
+        self.a = np.empty((rows, channels))
+        self.d = np.empty((rows - 1, channels))
+        self.s1 = np.empty((rows - 1, channels))
+        self.s2 = np.empty((rows - 1, channels))
+        self.bound = np.empty((rows - HISTORY, channels))
+        self.mask = np.empty((rows - HISTORY, channels), dtype=bool)
+
+
+def _sliding_max(d: np.ndarray, width: int, s1: np.ndarray, s2: np.ndarray) -> np.ndarray:
+    """``out[k] = max(d[k:k+width])`` along axis 0, by doubling: a few passes, into ``s1``/``s2`` in turn."""
+    out, spare = d, (s1, s2)
+    span, turn = 1, 0
+    while span <= width:
+        step = min(span, width - span)
+        if step == 0:
+            break
+        out = np.maximum(out[:-step], out[step:], out=spare[turn][:len(out) - step])
+        turn ^= 1
+        span += step
+    return out
+
+
+def true_peak(x, *, screen: bool = True) -> float:
+    """True peak of a whole signal, full scale 1.0 (see :class:`TruePeakMeter`).
+
+    Parameters
+    ----------
+    x : array_like, (frames,) or (frames, channels)
+    screen : bool
+        As in :class:`TruePeakMeter` (the result does not depend on it).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    if x.ndim == 1:
+        x = x[:, None]
+    m = TruePeakMeter(x.shape[1], screen=screen)
+    m.process(x)
+    m.finish()
+    return m.peak
+
+
+def true_peak_dbtp(x) -> float | None:
+    """True peak of a whole signal in dBTP (0 dBTP = full scale); None for digital silence."""
+    p = true_peak(x)
+    return 20.0 * math.log10(p) if p > 0 else None
