@@ -113,7 +113,7 @@ def survey_path(path, noise: NoiseReference | None = None):
             raise BadParameter(f"{noise.clip}: the noise clip has {ninf.channels} channel(s), "
                                f"{path} has {inf.channels}; they must agree")
         noise_blocks, noise_rate = audiofile.blocks(noise.clip), ninf.rate_hz
-    return spectrum.survey_blocks(audiofile.blocks(path), inf.rate_hz, inf.channels, frames=inf.frames,
+    return spectrum.survey_blocks(audiofile.blocks(path, ahead=True), inf.rate_hz, inf.channels, frames=inf.frames,
                                  noise_spans=None if noise.spans is None else list(noise.spans),
                                  noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
                                  margin_db=noise.margin_db, name=str(path),
@@ -230,7 +230,7 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
     if oinf.channels != ch or oinf.frames != survey.frames:
         raise BadInputFile(f"{out_path}: {oinf.frames} frames of {oinf.channels} channel(s); the input has "
                            f"{survey.frames} of {ch}, so the render cannot be measured against it")
-    for xb, yb in zip(audiofile.blocks(in_path), audiofile.blocks(out_path)):
+    for xb, yb in zip(audiofile.blocks(in_path, ahead=True), audiofile.blocks(out_path, ahead=True)):
         if len(xb) != len(yb):
             raise BadInputFile(f"{out_path}: its blocks do not line up with the input's; cannot measure the render")
         got_in = [(i0, p.copy()) for i0, p in seg_in.periodograms(xb)]

@@ -293,89 +293,44 @@ def _run_serial(reader, filt, writer, block_frames, progress):
             progress(done, reader.frames)
 
 
-_END = object()
-
-
-class _Failed:
-    def __init__(self, exc: BaseException):
-        self.exc = exc
-
-
-def _put(q: queue.Queue, item, stop: threading.Event) -> bool:
-    """Put unless told to stop (a full queue never deadlocks a failed pipeline)."""
-    while not stop.is_set():
-        try:
-            q.put(item, timeout=0.1)
-            return True
-        except queue.Full:
-            continue
-    return False
-
-
-def _get(q: queue.Queue, stop: threading.Event):
-    while not stop.is_set():
-        try:
-            return q.get(timeout=0.1)
-        except queue.Empty:
-            continue
-    return _END
-
-
 def _run_threaded(reader, filt, writer, block_frames, progress):
-    """Reader thread -> this thread (filter, quantise) -> writer thread.
+    """Reading ahead in one thread -> this thread (filter, quantise) -> writer thread.
 
-    Each hand-over is a bounded queue, so at most a few blocks are in flight.
+    Each hand-over is a bounded queue, so at most a few blocks are in flight;
+    a failure on any side stops the others and is raised here.
     """
-    q_in: queue.Queue = queue.Queue(QUEUE_DEPTH)
+    import contextlib
+
     q_out: queue.Queue = queue.Queue(QUEUE_DEPTH)
     stop = threading.Event()
     write_error: list[BaseException] = []
 
-    def read_loop():
-        try:
-            for x in reader.blocks(block_frames):
-                if not _put(q_in, x, stop):
-                    return
-            _put(q_in, _END, stop)
-        except BaseException as exc:  # handed to the main thread, which re-raises it
-            _put(q_in, _Failed(exc), stop)
-
     def write_loop():
         try:
             while True:
-                item = _get(q_out, stop)
-                if item is _END:
+                item = audiofile.get_unless_stopped(q_out, stop)
+                if item is audiofile.END:
                     return
                 writer.write_quantised(item)
         except BaseException as exc:
             write_error.append(exc)
             stop.set()
 
-    threads = [threading.Thread(target=read_loop, name="audition-read", daemon=True),
-               threading.Thread(target=write_loop, name="audition-write", daemon=True)]
-    for t in threads:
-        t.start()
+    write_thread = threading.Thread(target=write_loop, name="audition-write", daemon=True)
+    write_thread.start()
     done = 0
     try:
-        while True:
-            x = _get(q_in, stop)
-            if x is _END:
-                break
-            if isinstance(x, _Failed):
-                raise x.exc
-            if not _put(q_out, writer.quantise(filt(x)), stop):
-                break
-            done += len(x)
-            if progress is not None:
-                progress(done, reader.frames)
-        _put(q_out, _END, stop)
-        threads[1].join()
-    except BaseException:
-        stop.set()
-        raise
+        with contextlib.closing(audiofile.read_ahead(reader, block_frames, QUEUE_DEPTH)) as blocks:
+            for x in blocks:
+                if not audiofile.put_unless_stopped(q_out, writer.quantise(filt(x)), stop):
+                    break
+                done += len(x)
+                if progress is not None:
+                    progress(done, reader.frames)
+        audiofile.put_unless_stopped(q_out, audiofile.END, stop)
+        write_thread.join()
     finally:
         stop.set()
-        for t in threads:
-            t.join()
+        write_thread.join()
     if write_error:
         raise write_error[0]

@@ -150,12 +150,19 @@ def run(args) -> int:
             bar.close()
     for msg in j.get("warnings") or ():
         print(f"audition render: warning: {msg}", file=sys.stderr)
+    tp = j.get("true_peak_dbtp")
     if j["clipped_samples"]:
         trim = math.ceil(j["trim_db"] * 10.0 + 1e-9) / 10.0
         float_out = j["subtype"] in ("FLOAT", "DOUBLE")
         what = "kept beyond full scale (float output)" if float_out else "clipped at full scale"
-        print(f"audition render: warning: {j['clipped_samples']:,} sample(s) {what}; lower the level by {trim:.1f} dB "
-              f"(e.g. --gain-db {-trim:.1f}) and render again", file=sys.stderr)
+        peak = "" if tp is None else f", true peak of the output {tp:+.2f} dBTP"
+        print(f"audition render: warning: {j['clipped_samples']:,} sample(s) {what}{peak}; lower the level by "
+              f"{trim:.1f} dB (e.g. --gain-db {-trim:.1f}) and render again", file=sys.stderr)
+    elif tp is not None and tp > 0.0:
+        trim = math.ceil(tp * 10.0 - 1e-9) / 10.0
+        print(f"audition render: warning: no sample beyond full scale, but the true peak is {tp:+.2f} dBTP "
+              f"(inter-sample overs a converter may clip); lower the level by {trim:.1f} dB "
+              f"(e.g. --gain-db {-trim:.1f}) if that matters", file=sys.stderr)
     if args.json:
         print(json.dumps(j, indent=2))
     elif not args.quiet:
