@@ -399,7 +399,9 @@ class AudioReader:
             raise BadInputFile(f"{p!r}: empty file (0 bytes), not a sound file")
         self._raw = raw
         try:
-            self._sf = sf.SoundFile(raw, mode="r")
+            # Without hashing, libsndfile reads the descriptor itself: no Python call (holding the GIL)
+            # for every chunk it reads, so a reading thread runs beside the caller's work.
+            self._sf = sf.SoundFile(raw if hash_input else raw.fileno(), mode="r", closefd=False)
         except sf.LibsndfileError as exc:
             raw.close()
             raise BadInputFile(f"{p!r}: not a sound file libsndfile can read ({_sf_message(exc)})") from None
