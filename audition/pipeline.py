@@ -13,8 +13,8 @@ before anything is read, the render is atomic, and if the measurement or the
 report fails after the render, the output and its sidecar written by this job
 are removed again.
 
-Measurement after a render (issue 4, item 6)
---------------------------------------------
+Measurement after a render
+--------------------------
 Input and output are read together, block by block, and cut into the same
 Welch segments (:class:`audition.spectrum.Segmenter`). A segment lying wholly
 inside a noise span is noise reference, one touching no span is programme;
