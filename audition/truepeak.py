@@ -79,7 +79,7 @@ from audition.errors import BadParameter
 
 #: The interpolating filter of ITU-R BS.1770-4 Annex 2 (order 48, four phases of
 #: 12 taps), one row per phase as the Recommendation tabulates its columns. Values
-#: checked against several independent public transcriptions of the table, which
+#: checked against several independent public copies of the table, which
 #: agree digit for digit; the prototype is symmetric (phase 3 is phase 0 reversed,
 #: phase 2 is phase 1 reversed), which tests/test_truepeak.py asserts.
 ANNEX2_PHASES = np.array([
