@@ -897,23 +897,24 @@ def utc_now_iso() -> str:
     return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
 
 
-class SidecarWriter:
-    """A JSON record prepared in a temporary file, renamed into place by :meth:`commit`."""
+class PreparedText:
+    """A text file (UTF-8) prepared in a temporary file beside ``path``, renamed into place by :meth:`commit`.
 
-    def __init__(self, path, record: dict):
+    ``what`` names the file in an error ("sidecar", "report", ...).
+    """
+
+    def __init__(self, path, text: str, what: str = "file"):
         self.path = os.fspath(path)
-        text = json.dumps(record, indent=2, allow_nan=False) + "\n"
         self._tmp = _TempFile(self.path)
         try:
-            data = text.encode("utf-8")
-            view = memoryview(data)
+            view = memoryview(text.encode("utf-8"))
             while view:
                 view = view[os.write(self._tmp.fd, view):]
             self._tmp.sync()
         except BaseException as exc:
             self._tmp.remove()
             if isinstance(exc, OSError):
-                raise OutputRefused(f"{self.path!r}: writing the sidecar failed ({_os_message(exc)})") from None
+                raise OutputRefused(f"{self.path!r}: writing the {what} failed ({_os_message(exc)})") from None
             raise
 
     def commit(self):
@@ -921,6 +922,20 @@ class SidecarWriter:
 
     def abort(self):
         self._tmp.remove()
+
+
+class SidecarWriter(PreparedText):
+    """A JSON record prepared in a temporary file, renamed into place by :meth:`commit`."""
+
+    def __init__(self, path, record: dict):
+        super().__init__(path, json.dumps(record, indent=2, allow_nan=False) + "\n", "sidecar")
+
+
+def write_text(path, text: str, what: str = "file") -> str:
+    """Write ``text`` to ``path`` atomically (temporary file beside it, fsync, rename); returns the path."""
+    w = PreparedText(path, text, what)
+    w.commit()
+    return w.path
 
 
 def write_sidecar(path, record: dict) -> str:

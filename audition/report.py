@@ -10,9 +10,6 @@ import base64
 import html
 import json
 import os
-import tempfile
-
-from audition.errors import OutputRefused
 
 STYLE = """
 body { font-family: system-ui, sans-serif; max-width: 60rem; margin: 2rem auto; color: #222; line-height: 1.45; }
@@ -187,22 +184,7 @@ def render_page(job: dict, sidecar: dict, survey, plan, design) -> str:
 
 
 def write(path, text: str) -> None:
-    """Write the page atomically (temporary file in the target folder, then rename)."""
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise OutputRefused(f"{path}: folder {folder!r} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=".audition-", suffix=".html.tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; a report is an ordinary file
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    """Write the page (or any text) atomically: a temporary file in the target folder, then a rename."""
+    from audition import audiofile
+
+    audiofile.write_text(path, text, "report")

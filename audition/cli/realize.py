@@ -272,38 +272,13 @@ def format_coefficients(r: dict) -> str:
     return "\n".join(lines)
 
 
-def write_atomic(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file in the same folder and os.replace."""
-    import tempfile
-
-    from audition.errors import OutputRefused
-
-    folder = os.path.dirname(os.path.abspath(path))
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=".audition-", suffix=".h.tmp", dir=folder)
-    except OSError as exc:
-        raise OutputRefused(f"{path}: cannot write in {folder!r} ({exc.strerror})") from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except OSError as exc:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise OutputRefused(f"{path}: cannot write ({exc.strerror or exc})") from None
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
 # ---------------------------------------------------------------------------
 # Run
 # ---------------------------------------------------------------------------
 
 
 def run(args) -> int:
-    from audition import __version__, realize
+    from audition import __version__, audiofile, realize
     from audition.design import check_rate
 
     _check(args)
@@ -321,7 +296,7 @@ def run(args) -> int:
 
             plot_coefficients(coeffs, args.plot)
         if header is not None:
-            write_atomic(args.header, header)
+            audiofile.write_text(args.header, header, "header")
         if args.json:
             print(json.dumps(report, indent=2, allow_nan=False))
         else:
