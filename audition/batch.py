@@ -50,7 +50,7 @@ STATUSES = ("done", "skipped", "failed", "not run")
 #: The first columns of the report, in order; figures of the prediction and measurement follow.
 ROW_FIELDS = ("input", "output", "status", "reason", "warnings", "filter", "duration_seconds", "rate_hz",
               "channels", "f0_hz", "q", "order", "alignment", "highpass_hz", "sections", "method", "peak_dbfs",
-              "clipped_samples", "seconds", "realtime_factor", "input_sha256")
+              "true_peak_dbtp", "clipped_samples", "seconds", "realtime_factor", "input_sha256")
 _GLOB_MAGIC = re.compile(r"[*?[]")
 
 
@@ -455,8 +455,9 @@ def row_from_render(row: dict, r: dict) -> dict:
     """Fill a row from the dict :func:`audition.pipeline.render_job` returns."""
     row.update(_design_fields(r))
     row.update(duration_seconds=r.get("duration_seconds"), rate_hz=r.get("rate"), channels=r.get("channels"),
-               peak_dbfs=r.get("peak_dbfs"), clipped_samples=r.get("clipped_samples"),
-               realtime_factor=r.get("realtime_factor"), input_sha256=r.get("input_sha256"))
+               peak_dbfs=r.get("peak_dbfs"), true_peak_dbtp=r.get("true_peak_dbtp"),
+               clipped_samples=r.get("clipped_samples"), realtime_factor=r.get("realtime_factor"),
+               input_sha256=r.get("input_sha256"))
     for what in ("predicted", "measured"):
         if r.get(what):
             _flatten(what, r[what], row)
@@ -471,7 +472,7 @@ def row_from_sidecar(row: dict, rec: dict) -> dict:
     rate, frames = inp.get("rate_hz"), inp.get("frames")
     row.update(_design_fields(rec.get("design", {})))
     row.update(duration_seconds=frames / rate if rate and frames else None, rate_hz=rate,
-               channels=inp.get("channels"), peak_dbfs=rec.get("peak_dbfs"),
+               channels=inp.get("channels"), peak_dbfs=rec.get("peak_dbfs"), true_peak_dbtp=rec.get("true_peak_dbtp"),
                clipped_samples=rec.get("clipped_samples"), input_sha256=inp.get("sha256"))
     for what in ("predicted", "measured"):
         if rec.get(what):
@@ -557,7 +558,9 @@ def run_job(job: Job) -> dict:
         row_from_render(row, r)
         row.update(status="done", reason="")
     except AuditionError as exc:
-        row.update(status="failed", reason=_one_line(exc))
+        # the row already names the clip: drop the message's own "'path': " in front
+        reason = _one_line(exc)
+        row.update(status="failed", reason=reason.removeprefix(f"{job.input!r}: ") or reason)
     except KeyboardInterrupt:
         row.update(status="not run", reason="interrupted while rendering (nothing of it was kept)")
     except MemoryError:
