@@ -15,7 +15,7 @@ DEFAULT_REPORT = "batch-report"
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("batch", help=HELP, description=HELP.capitalize() + ". "
+    p = sub.add_parser("batch", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ". "
                        "Each output keeps its clip's place under OUTDIR, its container and encoding, and gets its "
                        "JSON sidecar. A clip that fails is reported with its reason and the others go on. "
                        "Exit status: 0 all rendered (or already done), 1 some failed, 2 bad arguments "

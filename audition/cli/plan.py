@@ -53,7 +53,7 @@ def add_plan_options(p, *, with_auto: bool = False) -> None:
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("plan", help=HELP, description=HELP.capitalize() + ".")
+    p = sub.add_parser("plan", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ".")
     p.add_argument("input", metavar="IN", help="the recording")
     add_noise_options(p)
     add_plan_options(p)

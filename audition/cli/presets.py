@@ -8,7 +8,7 @@ HELP = "list the bundled and user presets (starting points to audition, not rule
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("presets", help=HELP, description=HELP.capitalize() + ". User presets in $AUDITION_PRESETS "
+    p = sub.add_parser("presets", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ". User presets in $AUDITION_PRESETS "
                        "or ~/.config/audition/presets override bundled ones of the same name.")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)

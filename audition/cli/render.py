@@ -18,7 +18,7 @@ PROGRESS_MIN_SECONDS = 5.0
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("render", help=HELP, description=HELP.capitalize() + ". The output keeps the input's "
+    p = sub.add_parser("render", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ". The output keeps the input's "
                        "rate, channels, container and subtype; integer outputs get TPDF dither at their word "
                        "length. It is written to a temporary file beside OUT and renamed into place only "
                        "when complete.")

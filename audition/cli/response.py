@@ -10,7 +10,7 @@ HELP = "show a filter design: digital sections, deviation from the analog respon
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("response", help=HELP, description=HELP.capitalize() + ".")
+    p = sub.add_parser("response", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ".")
     add_filter_options(p)
     p.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")

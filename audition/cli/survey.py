@@ -15,7 +15,7 @@ WEIGHTING_NOTE = ("A-weighting (IEC 61672-1) and ITU-R BS.468-4 weighting are ap
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("survey", help=HELP, description=HELP.capitalize() + ".")
+    p = sub.add_parser("survey", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ".")
     p.add_argument("input", metavar="IN", help="the recording (any format libsndfile reads)")
     add_noise_options(p)
     add_filter_options(p, title="filter to predict (optional)")

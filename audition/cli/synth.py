@@ -20,7 +20,7 @@ HELP = "synthesise a test clip: programme plus hiss of known colour and level, w
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("synth", help=HELP, description=HELP.capitalize() + ". The programme is our own "
+    p = sub.add_parser("synth", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ". The programme is our own "
                        "scenario: four voices of harmonic notes rolling off above --programme-top, silent "
                        "during the lead-in. Deterministic for a seed.")
     p.add_argument("out", metavar="OUT.wav", help="the mix (container from the ending: .wav, .flac, .aiff, ...)")
