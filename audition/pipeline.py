@@ -181,8 +181,9 @@ class _PairedWelch:
 
     def __init__(self, seg, spans, rate_hz):
         self.seg = seg
-        self.spans = np.array([[round(a * rate_hz), round(b * rate_hz)] for a, b in (spans or ())],
-                              dtype=np.int64).reshape(-1, 2)
+        from audition.spectrum import span_frames
+
+        self.spans = span_frames(spans or (), rate_hz)
         n = len(seg.freqs_hz)
         self.noise = np.zeros(n)
         self.prog = np.zeros(n)
@@ -190,17 +191,11 @@ class _PairedWelch:
         self.n_prog = 0
 
     def classify(self, first, count, p_in):
-        from audition.spectrum import SILENT_POWER
+        from audition.spectrum import SILENT_POWER, classify_segments
 
-        starts = (first + np.arange(count, dtype=np.int64)) * self.seg.hop
-        ends = starts + self.seg.nperseg
-        inside = np.zeros(count, dtype=bool)
-        touch = np.zeros(count, dtype=bool)
-        for a, b in self.spans:
-            inside |= (starts >= a) & (ends <= b)
-            touch |= (starts < b) & (ends > a)
+        where = classify_segments(first, count, self.seg, self.spans)  # 1 inside a span, 2 partly, 0 outside
         live = p_in.sum(axis=1) * self.seg.df_hz > SILENT_POWER
-        return inside & live, ~touch & live
+        return (where == 1) & live, (where == 0) & live
 
 
 def measure_render(in_path, out_path, design, survey, noise: NoiseReference | None = None):

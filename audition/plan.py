@@ -295,6 +295,11 @@ def _alternatives(g, loss, budget_db, ci, cand):
     return tuple(out)
 
 
+def alternative_kind(alt, choice) -> str:
+    """"gentler" for an alternative that takes less treble than the choice, else "stronger"."""
+    return "gentler" if choice is not None and alt.treble_loss_db < choice.treble_loss_db else "stronger"
+
+
 def describe_q(design) -> str:
     """What the chosen Q does, in words a technician uses."""
     fig = design.figures()
@@ -320,9 +325,8 @@ def explain(choice, alternatives, weighting, budget_db, crossover_hz) -> str:
     if alternatives:
         parts = []
         for alt in alternatives:
-            kind = "gentler" if alt.treble_loss_db < choice.treble_loss_db else "stronger"
-            parts.append(f"a {kind} {alt.label} would give {alt.snr_gain_db[weighting]:.1f} dB for "
-                         f"{alt.treble_loss_db:.2f} dB of treble")
+            parts.append(f"a {alternative_kind(alt, choice)} {alt.label} would give "
+                         f"{alt.snr_gain_db[weighting]:.1f} dB for {alt.treble_loss_db:.2f} dB of treble")
         step = "Instead, " + "; ".join(parts) + "."
     return (where + what + step).strip()
 

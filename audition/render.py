@@ -5,14 +5,13 @@ frames with the filter state carried from block to block (``zi`` in, ``zf``
 out), so the result is that of one pass over the whole signal and the memory
 used does not grow with the length of the file. Reading, filtering and writing
 overlap in three threads: libsndfile, scipy's ``sosfilt`` and numpy release
-the GIL for their inner loops. A render costs about twice the CPU time of a
-plain block copy of the file (8.9 s against 4.2 s for 30 minutes of 48 kHz
-stereo 24-bit, benchmarks/bench_render.py), so it can come near the copy's
-wall time only on cores nobody else is using. The writer also meters the true peak
-of what it writes (:mod:`audition.truepeak`); with its exact screen that adds about
-1 ms of CPU per 65,536-frame stereo block on the benchmark's signal (a 5-minute
-file: 2.62 to 2.69 s of CPU for the whole render process without the meter, 2.77 to
-2.98 s with it; a full 4x interpolation would cost more than the rest of the render).
+the GIL for their inner loops. A render costs about three times the CPU time of
+a plain block copy of the file (benchmarks/bench_render.py; the README gives the
+figures), so it can come near the copy's wall time only on cores nobody else is
+using. The writer also meters the true peak of what it writes
+(:mod:`audition.truepeak`); with its exact screen that adds about 1 ms of CPU per
+65,536-frame stereo block on the benchmark's signal, where a full 4x interpolation
+would cost more than the rest of the render.
 
 Nothing here parses arguments or prints; :mod:`audition.cli.render` does.
 """

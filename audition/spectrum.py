@@ -288,17 +288,18 @@ def check_spans(spans, seconds: float | None = None, name: str = "noise-span") -
     return tuple((a, b) for a, b in merged)
 
 
-def _span_frames(spans, rate_hz: float) -> np.ndarray:
+def span_frames(spans, rate_hz: float) -> np.ndarray:
+    """Spans in seconds -> (n, 2) int64 frame bounds [start, end) at ``rate_hz``."""
     return np.array([[round(a * rate_hz), round(b * rate_hz)] for a, b in spans], dtype=np.int64).reshape(-1, 2)
 
 
-def _classify(first: int, n: int, seg: Segmenter, span_frames: np.ndarray) -> np.ndarray:
+def classify_segments(first: int, n: int, seg: Segmenter, bounds: np.ndarray) -> np.ndarray:
     """Per segment: 1 wholly inside one span, 2 partly inside, 0 outside all."""
     starts = (first + np.arange(n, dtype=np.int64)) * seg.hop
     ends = starts + seg.nperseg
     inside = np.zeros(n, dtype=bool)
     touch = np.zeros(n, dtype=bool)
-    for a, b in span_frames:
+    for a, b in bounds:
         inside |= (starts >= a) & (ends <= b)
         touch |= (starts < b) & (ends > a)
     return np.where(inside, 1, np.where(touch, 2, 0)).astype(np.int8)
@@ -332,7 +333,7 @@ class WelchPSD:
 
     def __init__(self, rate_hz: float, channels: int, nperseg: int | None = None, *, spans=None, inside: bool = True):
         self._seg = Segmenter(rate_hz, channels, nperseg)
-        self._spans = None if spans is None else _span_frames(check_spans(spans), rate_hz)
+        self._spans = None if spans is None else span_frames(check_spans(spans), rate_hz)
         self._want = 1 if inside else 0
         self._sum = np.zeros(len(self._seg.freqs_hz))
         self.segments = 0
@@ -349,7 +350,7 @@ class WelchPSD:
         """Add one block (frames, channels) or (frames,); blocks must come in order."""
         for first, p in self._seg.periodograms(block):
             if self._spans is not None:
-                p = p[_classify(first, len(p), self._seg, self._spans) == self._want]
+                p = p[classify_segments(first, len(p), self._seg, self._spans) == self._want]
             self._sum += p.sum(axis=0)
             self.segments += len(p)
 
@@ -968,11 +969,11 @@ def survey_blocks(blocks: Iterable, rate_hz: float, channels: int | None = None,
     seg = Segmenter(rate_hz, channels, nperseg)
     df = seg.df_hz
     acc = _LevelAccumulator(seg.freqs_hz)
-    span_frames = None if spans is None else _span_frames(spans, rate_hz)
+    span_bounds = None if spans is None else span_frames(spans, rate_hz)
 
     def feed(block):
         for i0, p in seg.periodograms(block):
-            cls = None if span_frames is None else _classify(i0, len(p), seg, span_frames)
+            cls = None if span_bounds is None else classify_segments(i0, len(p), seg, span_bounds)
             acc.add(p, cls)
 
     feed(first)

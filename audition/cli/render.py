@@ -67,13 +67,6 @@ class ProgressBar:
         self.stream.flush()
 
 
-def report(r, d) -> dict:
-    """The JSON object of one render (kept for callers of the old name)."""
-    from audition.pipeline import render_summary
-
-    return render_summary(r, d)
-
-
 def _clock(seconds: float) -> str:
     m, s = divmod(seconds, 60.0)
     h, m = divmod(int(m), 60)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from audition.plots import pyplot, save_figure
+from audition.plan import alternative_kind
 from audition.plots.survey import draw_survey
 
 
@@ -23,9 +24,8 @@ def draw_tradeoff(ax, pl):
                 xytext=(4, 0), textcoords="offset points", color="C1", fontsize=9)
     for alt in pl.alternatives:
         ax.plot([alt.treble_loss_db], [alt.snr_gain_db[w]], "s", color="C2", ms=7)
-        kind = "gentler" if pl.choice is not None and alt.treble_loss_db < pl.choice.treble_loss_db else "stronger"
-        ax.annotate(f"{kind}: {alt.label}", (alt.treble_loss_db, alt.snr_gain_db[w]), xytext=(8, -16),
-                    textcoords="offset points", fontsize=8, color="C2",
+        ax.annotate(f"{alternative_kind(alt, pl.choice)}: {alt.label}", (alt.treble_loss_db, alt.snr_gain_db[w]),
+                    xytext=(8, -16), textcoords="offset points", fontsize=8, color="C2",
                     bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85))
     if pl.choice is not None:
         c = pl.choice
