@@ -796,6 +796,31 @@ class AtomicWriter:
         return False
 
 
+#: Temporary files are ``.NAME.XXXXXXXX.part`` beside their target NAME (XXXXXXXX: mkstemp's random characters).
+_PART_SUFFIX = ".part"
+
+
+def remove_leftover_parts(target) -> list[str]:
+    """Remove the temporary files a killed writer of ``target`` left beside it; returns their names."""
+    import re
+
+    folder, name = os.path.split(os.path.abspath(os.fspath(target)))
+    pattern = re.compile(r"^\." + re.escape(name) + r"\.[A-Za-z0-9_]{8}" + re.escape(_PART_SUFFIX) + "$")
+    removed = []
+    try:
+        entries = os.listdir(folder)
+    except OSError:
+        return removed
+    for entry in entries:
+        if pattern.match(entry):
+            try:
+                os.unlink(os.path.join(folder, entry))
+                removed.append(entry)
+            except FileNotFoundError:
+                pass
+    return removed
+
+
 class _TempFile:
     """A temporary file beside ``target``: fsync, atomic rename into place, or removal."""
 
@@ -804,7 +829,7 @@ class _TempFile:
         folder = os.path.dirname(os.path.abspath(target))
         try:
             self.fd, self.name = tempfile.mkstemp(dir=folder, prefix="." + os.path.basename(target) + ".",
-                                                  suffix=".part")
+                                                  suffix=_PART_SUFFIX)
         except OSError as exc:
             raise OutputRefused(f"{target!r}: cannot create a file in {folder!r} ({_os_message(exc)})") from None
         # mkstemp makes 0600; give the output the permissions a plain new file would get

@@ -504,26 +504,10 @@ def finished_record(job: Job) -> dict | None:
 
 
 def remove_stale_parts(output: str) -> list[str]:
-    """Remove the temporary files a killed render of ``output`` left beside it; returns their names.
+    """Remove the temporary files a killed render of ``output`` (and of its sidecar) left beside it."""
+    from audition import audiofile
 
-    :class:`audition.audiofile.AtomicWriter` names them ``.NAME.XXXXXXXX.part``
-    (``NAME`` the output's file name, eight random characters) in the output's folder.
-    """
-    folder, name = os.path.split(output)
-    pattern = re.compile(r"^\." + re.escape(name) + r"(\.json)?\.[A-Za-z0-9_]{8}\.part$")
-    removed = []
-    try:
-        entries = os.listdir(folder)
-    except OSError:
-        return removed
-    for entry in entries:
-        if pattern.match(entry):
-            try:
-                os.unlink(os.path.join(folder, entry))
-                removed.append(entry)
-            except FileNotFoundError:
-                pass
-    return removed
+    return audiofile.remove_leftover_parts(output) + audiofile.remove_leftover_parts(audiofile.sidecar_path(output))
 
 
 def run_job(job: Job) -> dict:
