@@ -34,7 +34,7 @@ import json
 import os
 import re
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from audition import __version__
 from audition.errors import AuditionError, BadInputFile, BadParameter, OutputRefused
@@ -85,6 +85,11 @@ class Job:
         Replace existing outputs.
     filter_label : str
         Where the filter comes from, e.g. ``"preset cassette-ferric"``.
+    retry : bool
+        A second attempt after a worker pool broke under it. The first attempt may
+        have finished the clip and been killed before its row came back: an output
+        whose sidecar agrees is kept (status done), anything else of it is replaced.
+        Safe because the batch refused, before it began, outputs it may not replace.
     """
 
     index: int
@@ -100,6 +105,7 @@ class Job:
     resume: bool = False
     overwrite: bool = False
     filter_label: str = ""
+    retry: bool = False
 
     def settings(self) -> dict:
         """The settings this job's sidecar must carry (JSON form) for ``resume`` to skip it."""
@@ -526,16 +532,19 @@ def run_job(job: Job) -> dict:
 
         os.makedirs(os.path.dirname(job.output), exist_ok=True)
         remove_stale_parts(job.output)
-        if job.resume:
+        if job.resume or job.retry:
             rec = finished_record(job)
             if rec is not None:
                 row_from_sidecar(row, rec)
-                row.update(status="skipped", reason="done by an earlier run (same input bytes and settings)")
+                if job.retry:  # finished by this batch's first attempt, whose row was lost with its pool
+                    row.update(status="done", reason="")
+                else:
+                    row.update(status="skipped", reason="done by an earlier run (same input bytes and settings)")
                 row["seconds"] = time.perf_counter() - t0
                 return row
         from audition import audiofile
 
-        overwrite = job.overwrite or (job.resume and (os.path.lexists(job.output)
+        overwrite = job.overwrite or job.retry or (job.resume and (os.path.lexists(job.output)
                                                      or os.path.lexists(audiofile.sidecar_path(job.output))))
         r = pipeline.render_job(job.input, job.output, spec=job.spec, auto=job.auto, noise=job.noise,
                                 subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite)
@@ -669,9 +678,11 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
     """Run the jobs in worker processes; True when interrupted.
 
     A worker process that dies (a crash inside a library on a malformed file)
-    breaks the whole pool. The jobs it had not started go to a fresh pool;
-    the ones that had started (the culprit, and the others running beside it)
-    are run again one per process, so only the culprit is reported failed.
+    breaks the whole pool, and the pool kills its other workers. The jobs it
+    had not started go to a fresh pool; the ones that had started (the culprit,
+    and the others running beside it) are run again one per process, so only
+    the culprit is reported failed. Every second attempt is a ``retry`` job: a
+    clip its killed first attempt had already finished is kept, not refused.
     """
     import multiprocessing
 
@@ -689,6 +700,8 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
             for job in not_started:  # the workers die before any job starts: nothing to isolate
                 gather(job, _failed_row(job, "worker processes die as they start"))
             return False
+        started = [replace(j, retry=True) for j in started]
+        not_started = [replace(j, retry=True) for j in not_started]
         for job in started:
             solo = _one_pool([job], 1, ctx, stop, gather)
             if solo is None:

@@ -396,11 +396,38 @@ def test_a_worker_process_that_dies_fails_only_its_clip(tmp_path, monkeypatch):
     status = {os.path.basename(r["input"]): (r["status"], r["reason"]) for r in res.rows}
     assert status.pop("crash.wav")[0] == "failed"
     assert "worker process died" in res.rows[2]["reason"]
-    assert {s for s, _ in status.values()} == {"done"}
+    assert {s for s, _ in status.values()} == {"done"}, status
     for name in status:
         x, _ = audiofile.read_clip(src / name)
         y, _ = audiofile.read_clip(tmp_path / "out" / name)
         np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)  # scipy.signal.butter, as above
+
+
+def test_a_second_attempt_keeps_what_its_killed_first_attempt_finished(tmp_path):
+    # When one worker dies the pool kills the others, perhaps after a render finished but
+    # before its row came back. The second attempt must not refuse that output as "exists".
+    import dataclasses
+
+    from audition import presets
+
+    src = tmp_path / "src"
+    make_clip(src / "a.wav", seconds=0.6, seed=90)
+    make_clip(src / "b.wav", seconds=0.6, seed=91)
+    jobs = batch.plan_jobs([str(src)], str(tmp_path / "out"), spec=presets.FilterSpec("options", f0_hz=F0))
+    first = [batch.run_job(j) for j in jobs]
+    assert [r["status"] for r in first] == ["done", "done"]
+    kept = open(jobs[0].output, "rb").read()
+    before = os.stat(jobs[0].output).st_mtime_ns
+    # the first attempt at b was killed between its output and its sidecar
+    os.remove(audiofile.sidecar_path(jobs[1].output))
+    again = [batch.run_job(dataclasses.replace(j, retry=True)) for j in jobs]
+    assert [(r["status"], r["reason"]) for r in again] == [("done", ""), ("done", "")]
+    assert os.stat(jobs[0].output).st_mtime_ns == before and open(jobs[0].output, "rb").read() == kept
+    assert again[0]["true_peak_dbtp"] == first[0]["true_peak_dbtp"]
+    assert os.path.isfile(audiofile.sidecar_path(jobs[1].output))
+    # without the retry flag the same output is refused, as the batch promised before it began
+    plain = batch.run_job(jobs[0])
+    assert plain["status"] == "failed" and "exist" in plain["reason"]
 
 
 def test_progress_line_counts_files_hours_and_rate():
