@@ -716,16 +716,13 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
 def _warm_imports() -> None:
     """Import what a render needs before forking, so every worker inherits it.
 
-    scipy.signal takes about a second to import and the compiled kernels half a
-    second to load; done once here, forked workers start rendering at once
-    instead of each doing it.
+    scipy.signal alone takes about a second to import; imported once here,
+    forked workers start rendering at once instead of each importing it.
     """
     import scipy.signal  # noqa: F401
     import soundfile  # noqa: F401
 
-    from audition import kernels, measure, pipeline, plan, render, spectrum  # noqa: F401
-
-    kernels.warm_up()
+    from audition import measure, pipeline, plan, render, spectrum  # noqa: F401
 
 
 def _one_pool(jobs, n_workers, ctx, stop, gather):
