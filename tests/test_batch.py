@@ -403,6 +403,38 @@ def test_a_worker_process_that_dies_fails_only_its_clip(tmp_path, monkeypatch):
         np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)  # scipy.signal.butter, as above
 
 
+def _slow_to_report_render_job(in_path, out_path, **kw):
+    """b.wav finishes its output, then is slow to report; crash.wav's worker dies meanwhile."""
+    if os.path.basename(in_path) == "crash.wav":
+        time.sleep(0.3)
+        os._exit(70)
+    r = _real_render_job(in_path, out_path, **kw)
+    if os.path.basename(in_path) == "b.wav":
+        time.sleep(3.0)  # the pool breaks and kills this worker before its row comes back
+    return r
+
+
+def test_a_clip_finished_by_a_worker_killed_with_its_pool_is_kept(tmp_path, monkeypatch):
+    # The CI failure this guards: the pool kills every worker when one dies, perhaps after another
+    # worker's render was complete; its second attempt found the output there and refused it.
+    import multiprocessing
+
+    from audition import presets
+
+    src = tmp_path / "src"
+    for i, name in enumerate(("b.wav", "crash.wav")):
+        make_clip(src / name, seconds=0.6, seed=95 + i)
+    monkeypatch.setattr(pipeline, "render_job", _slow_to_report_render_job)
+    jobs = batch.plan_jobs([str(src)], str(tmp_path / "out"), spec=presets.FilterSpec("options", f0_hz=F0))
+    res = batch.run_batch(jobs, workers=2, mp_context=multiprocessing.get_context("fork"))
+    status = {os.path.basename(r["input"]): (r["status"], r["reason"]) for r in res.rows}
+    assert status["b.wav"] == ("done", ""), status
+    assert status["crash.wav"][0] == "failed"
+    x, _ = audiofile.read_clip(src / "b.wav")
+    y, _ = audiofile.read_clip(tmp_path / "out" / "b.wav")
+    np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)  # scipy.signal.butter, as above
+
+
 def test_a_second_attempt_keeps_what_its_killed_first_attempt_finished(tmp_path):
     # When one worker dies the pool kills the others, perhaps after a render finished but
     # before its row came back. The second attempt must not refuse that output as "exists".
