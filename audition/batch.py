@@ -85,11 +85,13 @@ class Job:
         Replace existing outputs.
     filter_label : str
         Where the filter comes from, e.g. ``"preset cassette-ferric"``.
-    retry : bool
-        A second attempt after a worker pool broke under it. The first attempt may
-        have finished the clip and been killed before its row came back: an output
-        whose sidecar agrees is kept (status done), anything else of it is replaced.
-        Safe because the batch refused, before it began, outputs it may not replace.
+    run : str
+        The batch run this job belongs to (set by :func:`run_batch`), recorded in the
+        sidecar as "batch_run". A job may be attempted twice: a worker process that
+        dies takes the rows of the others with it (a local pool kills them all; Dask
+        re-runs the tasks of a lost worker). So an attempt that finds an output
+        finished by its own run keeps it (status done), and one that finds its own
+        run's unfinished output (killed before the measurement) replaces it.
     """
 
     index: int
@@ -105,7 +107,7 @@ class Job:
     resume: bool = False
     overwrite: bool = False
     filter_label: str = ""
-    retry: bool = False
+    run: str = ""
 
     def settings(self) -> dict:
         """The settings this job's sidecar must carry (JSON form) for ``resume`` to skip it."""
@@ -486,8 +488,8 @@ def row_from_sidecar(row: dict, rec: dict) -> dict:
     return row
 
 
-def finished_record(job: Job) -> dict | None:
-    """The sidecar of this job's output when an earlier run finished it with the same input and settings."""
+def _read_sidecar(job: Job) -> dict | None:
+    """The JSON object in this job's sidecar, when the output and its sidecar are both there."""
     from audition import audiofile
 
     side = audiofile.sidecar_path(job.output)
@@ -498,7 +500,18 @@ def finished_record(job: Job) -> dict | None:
             rec = json.load(fh)
     except (OSError, ValueError):
         return None
-    if not isinstance(rec, dict) or rec.get("settings") != job.settings():
+    return rec if isinstance(rec, dict) else None
+
+
+def finished_record(job: Job, rec: dict | None = None) -> dict | None:
+    """The sidecar of this job's output when a run finished it with the same input and settings.
+
+    ``rec`` is the sidecar already read (default: read it now).
+    """
+    from audition import audiofile
+
+    rec = _read_sidecar(job) if rec is None else rec
+    if rec is None or rec.get("settings") != job.settings():
         return None
     if job.noise is not None and not rec.get("measured"):
         return None  # killed between the render and its measurement: the job is not finished
@@ -532,11 +545,13 @@ def run_job(job: Job) -> dict:
 
         os.makedirs(os.path.dirname(job.output), exist_ok=True)
         remove_stale_parts(job.output)
-        if job.resume or job.retry:
-            rec = finished_record(job)
+        side = _read_sidecar(job)
+        ours = bool(job.run) and side is not None and side.get("batch_run") == job.run
+        if side is not None and (job.resume or ours):
+            rec = finished_record(job, side)
             if rec is not None:
                 row_from_sidecar(row, rec)
-                if job.retry:  # finished by this batch's first attempt, whose row was lost with its pool
+                if ours:  # an earlier attempt of this run finished it; its row was lost with its worker
                     row.update(status="done", reason="")
                 else:
                     row.update(status="skipped", reason="done by an earlier run (same input bytes and settings)")
@@ -544,10 +559,11 @@ def run_job(job: Job) -> dict:
                 return row
         from audition import audiofile
 
-        overwrite = job.overwrite or job.retry or (job.resume and (os.path.lexists(job.output)
-                                                     or os.path.lexists(audiofile.sidecar_path(job.output))))
+        overwrite = job.overwrite or ours or (job.resume and (os.path.lexists(job.output)
+                                                              or os.path.lexists(audiofile.sidecar_path(job.output))))
         r = pipeline.render_job(job.input, job.output, spec=job.spec, auto=job.auto, noise=job.noise,
-                                subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite)
+                                subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite,
+                                provenance={"batch_run": job.run} if job.run else None)
         row_from_render(row, r)
         row.update(status="done", reason="")
     except AuditionError as exc:
@@ -648,6 +664,8 @@ def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_
         if on_row is not None:
             on_row(row)
 
+    run = f"{os.getpid()}-{time.time_ns()}"
+    jobs = [replace(job, run=run) for job in jobs]
     interrupted = False
     if client is not None:
         runner = f"dask cluster {getattr(client.scheduler, 'address', '?')}"
@@ -681,8 +699,8 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
     breaks the whole pool, and the pool kills its other workers. The jobs it
     had not started go to a fresh pool; the ones that had started (the culprit,
     and the others running beside it) are run again one per process, so only
-    the culprit is reported failed. Every second attempt is a ``retry`` job: a
-    clip its killed first attempt had already finished is kept, not refused.
+    the culprit is reported failed. A clip a killed worker had already finished
+    is kept by its second attempt (see ``Job.run``).
     """
     import multiprocessing
 
@@ -700,8 +718,6 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
             for job in not_started:  # the workers die before any job starts: nothing to isolate
                 gather(job, _failed_row(job, "worker processes die as they start"))
             return False
-        started = [replace(j, retry=True) for j in started]
-        not_started = [replace(j, retry=True) for j in not_started]
         for job in started:
             solo = _one_pool([job], 1, ctx, stop, gather)
             if solo is None:
@@ -797,9 +813,8 @@ def _run_on_cluster(jobs, client, gather) -> bool:
     from distributed import as_completed
 
     futures = {}
-    run_id = f"audition-batch-{os.getpid()}-{time.time_ns()}"
     for job in jobs:
-        futures[client.submit(run_job, job, pure=False, key=f"{run_id}-{job.index}")] = job
+        futures[client.submit(run_job, job, pure=False, key=f"audition-batch-{job.run}-{job.index}")] = job
     try:
         with client.as_current():
             finished = as_completed(list(futures))

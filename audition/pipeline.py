@@ -337,7 +337,7 @@ def _remove_quietly(*paths):
 
 def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None,
                noise: NoiseReference | None = None, subtype: str | None = None, dither: bool = True, seed: int = 0,
-               overwrite: bool = False, progress=None, report_path=None) -> dict:
+               overwrite: bool = False, progress=None, report_path=None, provenance: dict | None = None) -> dict:
     """Survey, plan (with ``auto``), render, measure and report one file.
 
     Parameters
@@ -356,6 +356,8 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         As :func:`audition.render.render_file`.
     report_path : str, optional
         Write one self-contained HTML page there after the render succeeded.
+    provenance : dict, optional
+        More keys for the sidecar (e.g. the batch run that rendered the file).
 
     Returns
     -------
@@ -405,7 +407,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         d = presets.check_design(spec, info.rate_hz, in_path)
         filter_source = {"kind": "spec", "name": spec.name, "file": spec.source or None}
 
-    record = {"settings": settings, "filter_source": filter_source}
+    record = {"settings": settings, "filter_source": filter_source, **(provenance or {})}
     predicted = None
     if survey is not None:
         predicted = measure.predict(survey.freqs_hz, survey.programme_psd, survey.noise_psd, d,

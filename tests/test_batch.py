@@ -435,31 +435,40 @@ def test_a_clip_finished_by_a_worker_killed_with_its_pool_is_kept(tmp_path, monk
     np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)  # scipy.signal.butter, as above
 
 
-def test_a_second_attempt_keeps_what_its_killed_first_attempt_finished(tmp_path):
-    # When one worker dies the pool kills the others, perhaps after a render finished but
-    # before its row came back. The second attempt must not refuse that output as "exists".
+def test_a_second_attempt_of_a_run_keeps_what_its_first_finished_and_redoes_the_rest(tmp_path):
+    # A worker that dies takes the rows of others with it (a local pool kills its workers, Dask
+    # re-runs a lost worker's tasks). A second attempt of the same run must not refuse its own work.
     import dataclasses
 
     from audition import presets
 
     src = tmp_path / "src"
-    make_clip(src / "a.wav", seconds=0.6, seed=90)
-    make_clip(src / "b.wav", seconds=0.6, seed=91)
-    jobs = batch.plan_jobs([str(src)], str(tmp_path / "out"), spec=presets.FilterSpec("options", f0_hz=F0))
-    first = [batch.run_job(j) for j in jobs]
+    make_clip(src / "a.wav", seconds=1.0, seed=90)
+    make_clip(src / "b.wav", seconds=1.0, seed=91)
+    jobs = batch.plan_jobs([str(src)], str(tmp_path / "out"), spec=presets.FilterSpec("options", f0_hz=F0),
+                           noise=pipeline.NoiseReference(spans=((0.0, 0.5),)))
+    run1 = [dataclasses.replace(j, run="run-1") for j in jobs]
+    first = [batch.run_job(j) for j in run1]
     assert [r["status"] for r in first] == ["done", "done"]
     kept = open(jobs[0].output, "rb").read()
     before = os.stat(jobs[0].output).st_mtime_ns
-    # the first attempt at b was killed between its output and its sidecar
-    os.remove(audiofile.sidecar_path(jobs[1].output))
-    again = [batch.run_job(dataclasses.replace(j, retry=True)) for j in jobs]
+    # b's first attempt was killed between its render and its measurement
+    side_b = audiofile.sidecar_path(jobs[1].output)
+    rec = json.load(open(side_b))
+    assert rec["batch_run"] == "run-1" and rec["measured"]
+    measured = rec.pop("measured")
+    audiofile.write_sidecar(side_b, rec)
+    again = [batch.run_job(j) for j in run1]
     assert [(r["status"], r["reason"]) for r in again] == [("done", ""), ("done", "")]
     assert os.stat(jobs[0].output).st_mtime_ns == before and open(jobs[0].output, "rb").read() == kept
     assert again[0]["true_peak_dbtp"] == first[0]["true_peak_dbtp"]
-    assert os.path.isfile(audiofile.sidecar_path(jobs[1].output))
-    # without the retry flag the same output is refused, as the batch promised before it began
-    plain = batch.run_job(jobs[0])
+    assert json.load(open(side_b))["measured"] == measured  # measured again: same input, same render
+    # another run is not this one: refused without --resume (as the batch promised before it
+    # began), skipped with it
+    other = dataclasses.replace(jobs[0], run="run-2")
+    plain = batch.run_job(other)
     assert plain["status"] == "failed" and "exist" in plain["reason"]
+    assert batch.run_job(dataclasses.replace(other, resume=True))["status"] == "skipped"
 
 
 def test_progress_line_counts_files_hours_and_rate():
