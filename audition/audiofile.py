@@ -43,6 +43,7 @@ import json
 import math
 import os
 import re
+import sys
 import tempfile
 from dataclasses import dataclass, field
 
@@ -75,6 +76,12 @@ _SIZE_LIMITED = {"WAV": 2**32 - 1, "WAVEX": 2**32 - 1, "AIFF": 2**32 - 1}
 # libsndfile's sf_command for leaving out (SF_FALSE) or adding the PEAK chunk of float files (sndfile.h).
 _SFC_SET_ADD_PEAK_CHUNK = 0x1050
 _SUBTYPE_BYTES = {"PCM_S8": 1, "PCM_U8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8}
+# sf_command asking whether the file's raw sample bytes are in the other byte order than this CPU's (sndfile.h).
+_SFC_RAW_DATA_NEEDS_ENDSWAP = 0x1110
+# Containers whose PCM_16/24/32 sample bytes audition converts itself (audition.kernels), libsndfile
+# keeping the header, the chunks and the file position: plain two's-complement samples, frame-major.
+_BYTE_CONTAINERS = ("WAV", "WAVEX", "W64", "RF64", "AIFF", "CAF")
+_BYTE_SUBTYPES = {"PCM_16": 2, "PCM_24": 3, "PCM_32": 4}
 
 
 # ---------------------------------------------------------------------------
@@ -302,6 +309,22 @@ class AudioInfo:
         return self.frames / self.rate_hz
 
 
+def _byte_layout(snd: sf.SoundFile) -> tuple[int, bool] | None:
+    """``(bytes per sample, big-endian)`` when audition converts this file's samples itself, else None.
+
+    For uncompressed PCM_16/24/32 the samples are moved as bytes with libsndfile's
+    ``sf_read_raw``/``sf_write_raw`` and converted by :mod:`audition.kernels`: the
+    same numbers libsndfile's own conversion gives (the tests compare them), in
+    one compiled pass instead of libsndfile's conversion through small buffers.
+    Everything else (FLAC, float, 8-bit, other containers) goes through libsndfile.
+    """
+    width = _BYTE_SUBTYPES.get(snd.subtype)
+    if width is None or snd.format not in _BYTE_CONTAINERS:
+        return None
+    swapped = bool(sf._snd.sf_command(snd._file, _SFC_RAW_DATA_NEEDS_ENDSWAP, sf._ffi.NULL, 0))
+    return width, swapped != (sys.byteorder == "big")
+
+
 class _HashingFile:
     """A raw file for libsndfile's virtual I/O that hashes the bytes as they are read.
 
@@ -417,6 +440,7 @@ class AudioReader:
                               metadata=_clean_metadata(f.copy_metadata()))
         # Integer samples cannot be NaN; only float files need the finiteness check.
         self._check_finite = f.subtype in FLOAT_SUBTYPES or f.subtype not in INTEGER_BITS
+        self._layout = _byte_layout(f)
         self.frames_read = 0
 
     rate_hz = property(lambda self: self.info.rate_hz)
@@ -429,7 +453,8 @@ class AudioReader:
     def read(self, n: int) -> np.ndarray:
         """The next ``n`` frames (fewer at the end, none after it) as float64 (frames, channels)."""
         try:
-            x = self._sf.read(n, dtype="float64", always_2d=True)
+            x = self._read_bytes(n) if self._layout is not None else self._sf.read(n, dtype="float64",
+                                                                                   always_2d=True)
         except (sf.LibsndfileError, RuntimeError) as exc:
             raise BadInputFile(f"{self.path!r}: read failed at frame {self.frames_read} ({exc})") from None
         if self._check_finite and len(x) and not np.isfinite(x).all():
@@ -439,6 +464,22 @@ class AudioReader:
                                f"(frames from 0; {frame / self.rate_hz:.6f} s); a file with NaN or infinite "
                                "samples cannot be rendered")
         self.frames_read += len(x)
+        return x
+
+    def _read_bytes(self, n: int) -> np.ndarray:
+        from audition import kernels
+
+        width, big = self._layout
+        frame_bytes = width * self.channels
+        n = max(0, min(int(n), self.frames - self.frames_read))
+        buf = np.empty(n * frame_bytes, dtype=np.uint8)
+        got = int(sf._snd.sf_read_raw(self._sf._file, sf._ffi.from_buffer(buf), buf.nbytes)) if n else 0
+        if got < len(buf):
+            code = sf._snd.sf_error(self._sf._file)
+            if code:
+                raise sf.LibsndfileError(code)
+        x = np.empty((got // frame_bytes, self.channels), dtype=np.float64)
+        kernels.unpack_pcm(buf[:len(x) * frame_bytes], width, big, x)
         return x
 
     def blocks(self, block_frames: int = BLOCK_FRAMES):
@@ -553,64 +594,53 @@ class Quantiser:
         self._bitgen = np.random.PCG64(seed)
         self._carry = np.zeros(0, dtype=np.uint32)  # 32 random bits left over from an odd-sized block
 
-    def dither_lsb(self, n: int) -> np.ndarray:
-        """The next ``n`` dither values times 2**16 (int32 in [-65535, 65535]; divide by 2**16 for LSB)."""
+    def _words(self, n: int) -> np.ndarray:
+        """The next ``n`` pairs of uniform 16-bit words (uint16, ``2n`` of them), in stream order."""
         need = n - len(self._carry)
         raw = self._bitgen.random_raw((need + 1) // 2).view(np.uint32) if need > 0 else np.zeros(0, np.uint32)
         bits = np.concatenate([self._carry, raw]) if len(self._carry) else raw
         self._carry = bits[n:].copy()
-        u = bits[:n].view(np.uint16)
+        return bits[:n].view(np.uint16)
+
+    def dither_lsb(self, n: int) -> np.ndarray:
+        """The next ``n`` dither values times 2**16 (int32 in [-65535, 65535]; divide by 2**16 for LSB)."""
+        u = self._words(n)
         return np.subtract(u[0::2], u[1::2], dtype=np.int32)
 
-    def __call__(self, x: np.ndarray) -> tuple[np.ndarray, int, float, float]:
-        """Quantise a float64 block.
+    def quantise(self, x: np.ndarray) -> tuple[np.ndarray, int, float, float]:
+        """Dither, round and saturate a float64 block.
 
         Returns
         -------
-        q : np.ndarray, int32, same shape
-            The integers, left-justified in 32 bits (``k * 2**(32-bits)``), as
-            libsndfile takes them: written without any further scaling.
+        k : np.ndarray, int32, same shape
+            The integers written, in LSBs (full scale is ``2**(bits-1)``).
         clipped : int
             Samples that were saturated.
         peak, unclipped_peak : float
             Sample peak after and before saturation, full scale 1.0.
         """
-        t, clipped, peak, unclipped = self.levels(x)
-        return self.left_justified(t), clipped, peak, unclipped
+        from audition import kernels
 
-    def levels(self, x: np.ndarray) -> tuple[np.ndarray, int, float, float]:
-        """Dither, round and saturate a float64 block; the output integers ``k`` as float64.
-
-        Same as :meth:`__call__` but before the conversion to int32: ``k`` counts LSBs
-        (full scale is ``2**(bits-1)``), so ``k / 2**(bits-1)`` are the written values.
-        """
+        x = np.ascontiguousarray(x, dtype=np.float64)
+        k = np.empty(x.shape if x.ndim == 2 else (x.size, 1), dtype=np.int32)
+        words = self._words(x.size) if self.dither else np.zeros(0, np.uint16)
+        hi, lo, clipped = kernels.tpdf_quantise(x.reshape(k.shape), self.scale, words, self.dither, k)
         s = self.scale
-        # order="C": sosfilt hands back a frame-major view in column order; one C-ordered
-        # array here keeps every later pass contiguous and spares the writer a transposing copy.
-        if self.dither:
-            # x*s*2**16 + d, then *2**-16: power-of-two scalings are exact, so this is x*s + d/2**16
-            t = np.multiply(x, s * 65536.0, order="C")
-            np.add(t, self.dither_lsb(t.size).reshape(t.shape), out=t)
-            t *= 1.0 / 65536.0
-        else:
-            t = np.multiply(x, s, order="C")
-        np.rint(t, out=t)
-        hi, lo = float(t.max(initial=0.0)), float(t.min(initial=0.0))
-        clipped = 0
-        if hi > s - 1 or lo < -s:
-            clipped = int(np.count_nonzero(t > s - 1)) + int(np.count_nonzero(t < -s))
-            np.clip(t, -s, s - 1, out=t)
         unclipped = max(hi, -lo) / s
         peak = max(min(hi, s - 1), -max(lo, -s)) / s
-        return t, clipped, peak, unclipped
+        return k.reshape(x.shape), int(clipped), peak, unclipped
 
-    def left_justified(self, t: np.ndarray) -> np.ndarray:
-        """The integers of :meth:`levels` as int32 ``k * 2**(32-bits)``, as libsndfile takes them."""
-        # left-justify and convert in one pass: integers times 2**(32-bits) stay exact in float64
-        # and within int32 after the saturation in levels()
-        q = np.empty(t.shape, dtype=np.int32)
-        np.multiply(t, float(2 ** (32 - self.bits)), out=q, casting="unsafe")
-        return q
+    def __call__(self, x: np.ndarray) -> tuple[np.ndarray, int, float, float]:
+        """As :meth:`quantise`, the integers left-justified in 32 bits (``k * 2**(32-bits)``), as libsndfile takes them."""
+        k, clipped, peak, unclipped = self.quantise(x)
+        return left_justify(k, self.bits), clipped, peak, unclipped
+
+
+def left_justify(k: np.ndarray, bits: int) -> np.ndarray:
+    """Integers of ``bits`` bits as int32 ``k * 2**(32-bits)`` (in place), the form libsndfile's int32 writes take."""
+    if bits < 32:
+        np.left_shift(k, 32 - bits, out=k)
+    return k
 
 
 class AtomicWriter:
@@ -685,6 +715,7 @@ class AtomicWriter:
                 raise OutputRefused(f"{self.path!r}: cannot be written as {format} {subtype} ({exc})") from None
             raise
         self.channels = channels
+        self._layout = _byte_layout(self._sf)
         self.meter = TruePeakMeter(channels)
         self._frames = 0
         self._peak = 0.0
@@ -704,13 +735,15 @@ class AtomicWriter:
                 raise OutputRefused(f"{self.path!r}: needs about {size / 2**20:,.0f} MiB but the disk has "
                                     f"{free / 2**20:,.0f} MiB free")
 
-    def quantise(self, x: np.ndarray) -> np.ndarray:
-        """Dither, round and saturate a block for this output; update the counts. Returns what to write."""
+    def quantise(self, x: np.ndarray) -> tuple[np.ndarray, float]:
+        """Dither, round and saturate a block for this output; update the counts.
+
+        Returns what :meth:`write_quantised` takes: the samples to write (int32
+        levels for integer subtypes) and their sample peak in the same units.
+        """
         if self.quantiser is not None:
-            t, clipped, peak, unclipped = self.quantiser.levels(x)
-            # the true peak of the integers written, in LSBs (scaled to full scale in stats)
-            self.meter.process(t, sample_peak=peak * self.quantiser.scale)
-            y = self.quantiser.left_justified(t)
+            y, clipped, peak, unclipped = self.quantiser.quantise(x)
+            units = peak * self.quantiser.scale  # the meter reads the integers, in LSBs
         else:
             a = float(np.max(np.abs(x), initial=0.0))
             clipped = int(np.count_nonzero(np.abs(x) > 1.0)) if a > 1.0 else 0
@@ -718,21 +751,41 @@ class AtomicWriter:
             # libsndfile's double-to-float conversion is this same round-to-nearest cast
             y = x.astype(np.float32) if self.subtype == "FLOAT" else x
             peak = float(np.float32(a)) if self.subtype == "FLOAT" else a
-            unclipped = peak
-            self.meter.process(y, sample_peak=peak)
+            unclipped = units = peak
         self._clipped += clipped
         self._peak = max(self._peak, peak)
         self._unclipped = max(self._unclipped, unclipped)
-        return y
+        return y, units
 
-    def write_quantised(self, y: np.ndarray) -> None:
-        """Write a block already returned by :meth:`quantise` (may run in another thread)."""
+    def write_quantised(self, block: tuple[np.ndarray, float]) -> None:
+        """Meter the true peak of a block :meth:`quantise` returned, and write it (may run in another thread).
+
+        Blocks must come in the order they were quantised.
+        """
+        y, units = block
+        self.meter.process(y, sample_peak=units)
         try:
-            self._sf.write(y)
+            self._write_samples(y)
         except (sf.LibsndfileError, RuntimeError, OSError, AssertionError) as exc:
             raise OutputRefused(f"{self.path!r}: writing failed after {self._frames} frames "
                                 f"({_os_message(exc)}); nothing was left behind") from None
         self._frames += len(y)
+
+    def _write_samples(self, y: np.ndarray) -> None:
+        """Hand one block to libsndfile: as PCM bytes, as left-justified int32, or as floats."""
+        if self._layout is not None:
+            from audition import kernels
+
+            width, big = self._layout
+            buf = np.empty(y.size * width, dtype=np.uint8)
+            kernels.pack_pcm(np.ascontiguousarray(y), width, big, buf)
+            put = int(sf._snd.sf_write_raw(self._sf._file, sf._ffi.from_buffer(buf), buf.nbytes))
+            if put != buf.nbytes:
+                raise sf.LibsndfileError(sf._snd.sf_error(self._sf._file) or 2)  # 2: SFE_SYSTEM, a failed write(2)
+        elif self.quantiser is not None:
+            self._sf.write(left_justify(y, self.bits))
+        else:
+            self._sf.write(y)
 
     def write(self, x: np.ndarray) -> None:
         """Quantise and write one float64 (frames, channels) block."""

@@ -4,14 +4,13 @@ A file of any length goes through in blocks of :data:`~audition.audiofile.BLOCK_
 frames with the filter state carried from block to block (``zi`` in, ``zf``
 out), so the result is that of one pass over the whole signal and the memory
 used does not grow with the length of the file. Reading, filtering and writing
-overlap in three threads: libsndfile, scipy's ``sosfilt`` and numpy release
-the GIL for their inner loops. A render costs about three times the CPU time of
-a plain block copy of the file (benchmarks/bench_render.py; the README gives the
-figures), so it can come near the copy's wall time only on cores nobody else is
-using. The writer also meters the true peak of what it writes
-(:mod:`audition.truepeak`); with its exact screen that adds about 1 ms of CPU per
-65,536-frame stereo block on the benchmark's signal, where a full 4x interpolation
-would cost more than the rest of the render.
+overlap in three threads; libsndfile and the compiled loops of
+:mod:`audition.kernels` (filter, dither and quantisation, PCM byte conversion)
+release the GIL, so the threads run side by side. The filtering thread also
+meters the true peak of what will be written (:mod:`audition.truepeak`); with
+its exact screen that adds about 1 ms of CPU per 65,536-frame stereo block on
+the benchmark's signal, where a full 4x interpolation would cost more than the
+rest of the render.
 
 Nothing here parses arguments or prints; :mod:`audition.cli.render` does.
 """
@@ -50,25 +49,32 @@ class StreamingFilter:
 
     Notes
     -----
-    Each call is ``y, zf = scipy.signal.sosfilt(sos, x, axis=0, zi=zi)`` and
-    ``zf`` becomes the next ``zi``; the transposed direct form II of every
-    section is exactly the same recursion whether or not the signal is cut, so
-    the blocks join without a seam.
+    Each call runs :func:`audition.kernels.sos_filter`: the transposed direct
+    form II recursion of :func:`scipy.signal.sosfilt`, operation for operation,
+    so a call equals ``y, zf = sosfilt(sos, x, axis=0, zi=zi)`` bit for bit and
+    ``zf`` becomes the next ``zi``. The recursion is the same whether or not the
+    signal is cut, so the blocks join without a seam.
     """
 
     def __init__(self, sos, channels: int):
-        from scipy.signal import sosfilt
+        from audition import kernels
 
-        self._sosfilt = sosfilt
-        self.sos = np.array(sos, dtype=np.float64, ndmin=2)
+        self._run = kernels.sos_filter
+        self.sos = np.array(sos, dtype=np.float64, ndmin=2, order="C")
         if self.sos.shape[1] != 6:
             raise BadParameter(f"sos of shape {self.sos.shape!r}: need (n_sections, 6)")
-        self.zi = np.zeros((len(self.sos), 2, channels))
+        self.channels = int(channels)
+        self.zi = np.zeros((len(self.sos), 2, self.channels))
 
     def __call__(self, x: np.ndarray) -> np.ndarray:
+        """Filter one float64 (frames, channels) block; returns a new array."""
         if not len(self.sos):
             return x
-        y, self.zi = self._sosfilt(self.sos, x, axis=0, zi=self.zi)
+        x = np.ascontiguousarray(x, dtype=np.float64)
+        if x.ndim != 2 or x.shape[1] != self.channels:
+            raise BadParameter(f"block of shape {x.shape!r} for a {self.channels}-channel filter")
+        y = np.empty_like(x)
+        self._run(x, self.sos, self.zi, y)
         return y
 
 

@@ -322,7 +322,7 @@ def test_failure_part_way_leaves_nothing_and_keeps_the_old_file(tmp_path, monkey
     audiofile.write_clip(p, np.full((10, 1), 0.25), 8000)
     before = p.read_bytes()
     calls = []
-    real = audiofile.sf.SoundFile.write
+    real = audiofile.AtomicWriter._write_samples  # every write of samples to libsndfile
 
     def fails_on_third(self, data):
         calls.append(len(data))
@@ -330,7 +330,7 @@ def test_failure_part_way_leaves_nothing_and_keeps_the_old_file(tmp_path, monkey
             raise audiofile.sf.LibsndfileError(2)  # what libsndfile raises when write(2) fails
         return real(self, data)
 
-    monkeypatch.setattr(audiofile.sf.SoundFile, "write", fails_on_third)
+    monkeypatch.setattr(audiofile.AtomicWriter, "_write_samples", fails_on_third)
     with pytest.raises(OutputRefused, match="disk full") as e:
         audiofile.write_clip(p, np.zeros((5 * audiofile.BLOCK_FRAMES, 1)), 8000, overwrite=True)
     assert "out.wav" in str(e.value)

@@ -466,7 +466,7 @@ def _bad_case(tmp_path, case, monkeypatch):
         monkeypatch.setattr(os, "access", lambda p, m, **k: False if os.fspath(p) == str(tmp_path) else real(p, m))
         return [str(src), str(out)], ["out.wav", "not writable"]
     if case == "disk full":
-        real = audiofile.sf.SoundFile.write
+        real = audiofile.AtomicWriter._write_samples  # every write of samples to libsndfile
         calls = []
 
         def fills_up(self, data):
@@ -475,7 +475,7 @@ def _bad_case(tmp_path, case, monkeypatch):
                 raise audiofile.sf.LibsndfileError(2)  # what a failed write(2) gives from libsndfile
             return real(self, data)
 
-        monkeypatch.setattr(audiofile.sf.SoundFile, "write", fills_up)
+        monkeypatch.setattr(audiofile.AtomicWriter, "_write_samples", fills_up)
         return [str(src), str(out)], ["out.wav", "disk full"]
     if case == "f0 at nyquist":
         return [str(src), str(out), "--f0", "24000"], ["in.wav", "24000", "rate/2"]
