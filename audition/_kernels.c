@@ -111,3 +111,66 @@ AU_EXPORT void au_unpack_pcm(const uint8_t *raw, double *y, ptrdiff_t n, int wid
         y[j] = (double)(int32_t)u * step;
     }
 }
+
+/* The true-peak scan of one block (ITU-R BS.1770-4 Annex 2, 4x; see audition/truepeak.py for the
+ * maths of the screen). xx holds `rows` = n + 11 frames of `channels` (frame-major): 11 frames of
+ * history, then the block. Window k (0 <= k < n) is xx[k .. k+11], oldest first; its four
+ * interpolated values are summed one tap column at a time, oldest first (taps[col][phase]), the
+ * order truepeak.interpolate_windows uses, so each value is the same to the bit. With `screen`,
+ * a window is interpolated only when its bound gain*max(|x[k+5]|, |x[k+6]|) + diff*max|first
+ * differences| reaches t*(1 - slack), t the running maximum; the bound is a proof, so the
+ * returned maximum equals that of interpolating every window. scratch: 3*rows doubles.
+ * Returns the new maximum (never below t); *interpolated gets the windows interpolated. */
+AU_EXPORT double au_true_peak_scan(const double *xx, ptrdiff_t n, ptrdiff_t channels, double t,
+                                   const double *taps, double gain, double diff, double slack,
+                                   int screen, double *scratch, int64_t *interpolated)
+{
+    const ptrdiff_t W = 11, rows = n + 11, nd = rows - 1;
+    double *e = scratch, *g = scratch + rows, *h = scratch + 2 * rows;
+    int64_t count = 0;
+    for (ptrdiff_t c = 0; c < channels; c++) {
+        if (screen) {
+            /* |first differences|, then their maxima over 11 by prefix and suffix maxima within
+             * aligned runs of 11 (van Herk / Gil-Werman): max e[k..k+10] = max(h[k], g[k+10]) */
+            for (ptrdiff_t j = 0; j < nd; j++)
+                e[j] = fabs(xx[(j + 1) * channels + c] - xx[j * channels + c]);
+            for (ptrdiff_t start = 0; start < nd; start += W) {
+                ptrdiff_t end = start + W < nd ? start + W : nd;
+                g[start] = e[start];
+                for (ptrdiff_t j = start + 1; j < end; j++)
+                    g[j] = e[j] > g[j - 1] ? e[j] : g[j - 1];
+                h[end - 1] = e[end - 1];
+                for (ptrdiff_t j = end - 2; j >= start; j--)
+                    h[j] = e[j] > h[j + 1] ? e[j] : h[j + 1];
+            }
+        }
+        double threshold = t * (1.0 - slack);
+        for (ptrdiff_t k = 0; k < n; k++) {
+            const double *w = xx + k * channels + c;
+            if (screen) {
+                double a5 = fabs(w[5 * channels]), a6 = fabs(w[6 * channels]);
+                double centre = a5 > a6 ? a5 : a6;
+                double big = h[k] > g[k + W - 1] ? h[k] : g[k + W - 1];
+                if (gain * centre + diff * big < threshold)
+                    continue;
+            }
+            double y[4];
+            for (int p = 0; p < 4; p++)
+                y[p] = w[0] * taps[p];
+            for (ptrdiff_t col = 1; col < 12; col++) {
+                double v = w[col * channels];
+                for (int p = 0; p < 4; p++)
+                    y[p] = y[p] + v * taps[4 * col + p];
+            }
+            for (int p = 0; p < 4; p++) {
+                double m = fabs(y[p]);
+                if (m > t)
+                    t = m;
+            }
+            threshold = t * (1.0 - slack);
+            count++;
+        }
+    }
+    *interpolated = count;
+    return t;
+}

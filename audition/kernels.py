@@ -20,7 +20,9 @@ operations in the same order as its reference, so the results are equal, not clo
   16-bit uniforms, as :class:`audition.audiofile.Quantiser` documents;
 * :func:`unpack_pcm` and :func:`pack_pcm` convert between two's-complement PCM bytes
   and numbers exactly as libsndfile does for PCM_16/24/32 (its doubles are the
-  integers over ``2**(bits-1)``, an exact scaling; tests compare both ways).
+  integers over ``2**(bits-1)``, an exact scaling; tests compare both ways);
+* :func:`true_peak_scan` is the screened 4x interpolation of :mod:`audition.truepeak`
+  (each interpolated value summed in the same order, so the reading is the same).
 
 Arrays must be C-contiguous with the dtypes given.
 """
@@ -87,8 +89,14 @@ def _np_unpack_pcm(raw, width, big_endian, y):
     np.multiply(v.reshape(y.shape), 1.0 / 2147483648.0, out=y)
 
 
+def _np_true_peak_scan(xx, t, screen, scratch):
+    from audition import truepeak
+
+    return truepeak.scan_block(xx, t, screen, scratch)
+
+
 portable = SimpleNamespace(sos_filter=_np_sos_filter, tpdf_quantise=_np_tpdf_quantise,
-                           pack_pcm=_np_pack_pcm, unpack_pcm=_np_unpack_pcm)
+                           pack_pcm=_np_pack_pcm, unpack_pcm=_np_unpack_pcm, true_peak_scan=_np_true_peak_scan)
 
 
 # ---------------------------------------------------------------------------
@@ -120,6 +128,10 @@ def _load_library():
     lib.au_pack_pcm.restype = None
     lib.au_unpack_pcm.argtypes = [c_uint8_p, c_double_p, n, ctypes.c_int, ctypes.c_int]
     lib.au_unpack_pcm.restype = None
+    lib.au_true_peak_scan.argtypes = [c_double_p, n, n, ctypes.c_double, c_double_p, ctypes.c_double,
+                                      ctypes.c_double, ctypes.c_double, ctypes.c_int, c_double_p,
+                                      ctypes.POINTER(ctypes.c_int64)]
+    lib.au_true_peak_scan.restype = ctypes.c_double
     return lib
 
 
@@ -161,8 +173,20 @@ def _compiled(lib):
         lib.au_unpack_pcm(_ptr(raw, u8, np.uint8), _ptr(y, d, np.float64, True), y.size, int(width),
                           int(bool(big_endian)))
 
+    def true_peak_scan(xx, t, screen, scratch):
+        from audition import truepeak
+
+        rows, channels = xx.shape
+        work = scratch.work(3 * rows)
+        count = ctypes.c_int64(0)
+        peak = lib.au_true_peak_scan(_ptr(xx, d, np.float64), rows - truepeak.HISTORY, channels, float(t),
+                                     _ptr(truepeak.TAPS_BY_COLUMN, d, np.float64), truepeak.SCREEN_GAIN,
+                                     truepeak.SCREEN_DIFF, truepeak.SCREEN_SLACK, int(bool(screen)),
+                                     _ptr(work, d, np.float64, True), ctypes.byref(count))
+        return float(peak), int(count.value)
+
     return SimpleNamespace(sos_filter=sos_filter, tpdf_quantise=tpdf_quantise, pack_pcm=pack_pcm,
-                           unpack_pcm=unpack_pcm)
+                           unpack_pcm=unpack_pcm, true_peak_scan=true_peak_scan)
 
 
 _lib = _load_library()
@@ -176,3 +200,4 @@ sos_filter = _active.sos_filter
 tpdf_quantise = _active.tpdf_quantise
 pack_pcm = _active.pack_pcm
 unpack_pcm = _active.unpack_pcm
+true_peak_scan = _active.true_peak_scan

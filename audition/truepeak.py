@@ -98,10 +98,10 @@ FACTOR, TAPS = ANNEX2_PHASES.shape
 #: Samples of the previous block each window still needs.
 HISTORY = TAPS - 1
 
-# Relative slack on the screen's comparison: floating-point rounding of the bound and
-# of the interpolated values is below 1e-14 of the window's largest sample, which is
-# never above T (T includes the sample peak); 1e-9 leaves a wide margin.
-_SLACK = 1e-9
+#: Relative slack on the screen's comparison: floating-point rounding of the bound and
+#: of the interpolated values is below 1e-14 of the window's largest sample, which is
+#: never above T (T includes the sample peak); 1e-9 leaves a wide margin.
+SCREEN_SLACK = 1e-9
 
 
 def annex2_prototype() -> np.ndarray:
@@ -140,13 +140,14 @@ def _screen_constants(phases: np.ndarray) -> tuple[float, float, tuple[int, ...]
     return max(gains) * (1 + 1e-12), max(sums) * (1 + 1e-12), tuple(centres)
 
 
-_GAIN, _DIFF, _CENTRES = _screen_constants(ANNEX2_PHASES)
+SCREEN_GAIN, SCREEN_DIFF, _CENTRES = _screen_constants(ANNEX2_PHASES)
 # The screen takes the larger of the two centre samples (lags 5 and 6); it is valid only if every
 # phase's centre is one of them (true of the tabulated filter; checked here so a changed table cannot
 # silently break the proof).
 assert set(_CENTRES) <= {5, 6}, _CENTRES
-# Column ``col`` of a gathered window is x[i - (11 - col)], oldest first: the taps reversed.
-_TAPS_BY_COLUMN = np.ascontiguousarray(ANNEX2_PHASES[:, ::-1].T)  # (12, 4)
+#: Column ``col`` of a gathered window is x[i - (11 - col)], oldest first: the taps reversed, (12, 4).
+TAPS_BY_COLUMN = np.ascontiguousarray(ANNEX2_PHASES[:, ::-1].T)
+TAPS_BY_COLUMN.setflags(write=False)
 # The plain bound's constant: the largest sum |h_k| (2.02, phases 1 and 2).
 _ABS_SUM = float(np.abs(ANNEX2_PHASES).sum(axis=1).max()) * (1 + 1e-12)
 
@@ -172,9 +173,9 @@ def interpolate_windows(windows: np.ndarray) -> np.ndarray:
     That is what lets the screened meter equal the full computation exactly.
     """
     w = np.asarray(windows, dtype=np.float64)
-    y = w[:, 0:1] * _TAPS_BY_COLUMN[0]
+    y = w[:, 0:1] * TAPS_BY_COLUMN[0]
     for col in range(1, TAPS):
-        y += w[:, col:col + 1] * _TAPS_BY_COLUMN[col]
+        y += w[:, col:col + 1] * TAPS_BY_COLUMN[col]
     return y
 
 
@@ -253,25 +254,17 @@ class TruePeakMeter:
         n = len(x)
         if n == 0:
             return
+        from audition import kernels
+
         buf = self._buffers(n)
         # the stream: 11 samples of history, then the block (float64, frames x channels)
         xx = buf.xx[:n + HISTORY]
         xx[HISTORY:] = x
-        a = np.abs(xx, out=buf.a[:n + HISTORY])
         self.windows_total += n * self.channels
         if sample_peak is None:
-            sample_peak = float(a[HISTORY:].max())
-        t = max(self.peak, float(sample_peak))
-        if self.screen:
-            cand = self._candidates(buf, n, t)
-        else:
-            cand = np.divmod(np.arange(n * self.channels), self.channels)
-        if len(cand[0]):
-            k, ch = cand
-            windows = xx[k[:, None] + np.arange(TAPS), ch[:, None]]
-            y = interpolate_windows(windows)
-            self.windows_interpolated += len(k)
-            t = max(t, float(np.abs(y).max()))
+            sample_peak = float(np.abs(xx[HISTORY:]).max())
+        t, count = kernels.true_peak_scan(xx, max(self.peak, float(sample_peak)), self.screen, buf)
+        self.windows_interpolated += count
         self.peak = t
         # the last 11 samples are the next block's history (a copy: they may overlap when n < 11)
         buf.xx[:HISTORY] = xx[n:].copy() if n < HISTORY else xx[n:]
@@ -290,25 +283,6 @@ class TruePeakMeter:
             buf.xx[:HISTORY] = history
         return buf
 
-    def _candidates(self, buf: "_Scratch", n: int, t: float):
-        """(window, channel) indices whose bound reaches ``t``; window k ends at stream index k + 11."""
-        xx, a = buf.xx[:n + HISTORY], buf.a[:n + HISTORY]
-        threshold = t * (1.0 - _SLACK)
-        # whole block first: no window exceeds sum|h| * max|x| (the plain bound, one reduction)
-        if _ABS_SUM * float(a.max()) < threshold:
-            return (np.zeros(0, dtype=np.intp),) * 2
-        # |first differences|; window k uses d[k .. k+10] (its 11 differences)
-        d = np.subtract(xx[1:], xx[:-1], out=buf.d[:n + HISTORY - 1])
-        np.abs(d, out=d)
-        big = _sliding_max(d, HISTORY, buf.s1, buf.s2)  # (n, channels)
-        # the centre samples x[i-6], x[i-5] of window k (i = k + 11) are a[k+5], a[k+6];
-        # bound/_GAIN = max(centres) + (_DIFF/_GAIN) * big, compared with threshold/_GAIN
-        big *= _DIFF / _GAIN
-        big += np.maximum(a[5:5 + n], a[6:6 + n], out=buf.bound[:n])
-        mask = np.greater_equal(big, threshold / _GAIN, out=buf.mask[:n])
-        # flat indices of a C-ordered (frames, channels) array: cheaper than a 2-D nonzero
-        return np.divmod(np.flatnonzero(mask), self.channels)
-
     def finish(self) -> None:
         """Feed the 11 zero samples after the end (measures the last crests); then no more blocks."""
         if not self._finished:
@@ -316,17 +290,65 @@ class TruePeakMeter:
             self._finished = True
 
 
+def scan_block(xx: np.ndarray, t: float, screen: bool, buf: "_Scratch") -> tuple[float, int]:
+    """The largest interpolated magnitude of a block's windows, at least ``t``; and how many were interpolated.
+
+    ``xx`` is (n + 11, channels): 11 samples of history, then the block; window k is
+    ``xx[k:k+12]``. With ``screen`` only the windows whose bound reaches ``t`` are
+    interpolated (see the module's notes); the result is the same. This is the numpy
+    form; :mod:`audition.kernels` holds a compiled one that gives the same reading.
+    """
+    n, channels = len(xx) - HISTORY, xx.shape[1]
+    if screen:
+        k, ch = _candidates(xx, t, buf)
+    else:
+        k, ch = np.divmod(np.arange(n * channels), channels)
+    if len(k):
+        windows = xx[k[:, None] + np.arange(TAPS), ch[:, None]]
+        t = max(t, float(np.abs(interpolate_windows(windows)).max()))
+    return t, len(k)
+
+
+def _candidates(xx: np.ndarray, t: float, buf: "_Scratch"):
+    """(window, channel) indices whose bound reaches ``t``; window k ends at stream index k + 11."""
+    rows, channels = xx.shape
+    n = rows - HISTORY
+    a = np.abs(xx, out=buf.a[:rows])
+    threshold = t * (1.0 - SCREEN_SLACK)
+    # whole block first: no window exceeds sum|h| * max|x| (the plain bound, one reduction)
+    if _ABS_SUM * float(a.max()) < threshold:
+        return (np.zeros(0, dtype=np.intp),) * 2
+    # |first differences|; window k uses d[k .. k+10] (its 11 differences)
+    d = np.subtract(xx[1:], xx[:-1], out=buf.d[:rows - 1])
+    np.abs(d, out=d)
+    big = _sliding_max(d, HISTORY, buf.s1, buf.s2)  # (n, channels)
+    # the centre samples x[i-6], x[i-5] of window k (i = k + 11) are a[k+5], a[k+6];
+    # bound/gain = max(centres) + (diff/gain) * big, compared with threshold/gain
+    big *= SCREEN_DIFF / SCREEN_GAIN
+    big += np.maximum(a[5:5 + n], a[6:6 + n], out=buf.bound[:n])
+    mask = np.greater_equal(big, threshold / SCREEN_GAIN, out=buf.mask[:n])
+    # flat indices of a C-ordered (frames, channels) array: cheaper than a 2-D nonzero
+    return np.divmod(np.flatnonzero(mask), channels)
+
+
 class _Scratch:
     """The work arrays of one meter, ``rows`` frames by ``channels``."""
 
     def __init__(self, rows: int, channels: int):
         self.xx = np.zeros((rows, channels))
+        self._work = np.empty(0)
         self.a = np.empty((rows, channels))
         self.d = np.empty((rows - 1, channels))
         self.s1 = np.empty((rows - 1, channels))
         self.s2 = np.empty((rows - 1, channels))
         self.bound = np.empty((rows - HISTORY, channels))
         self.mask = np.empty((rows - HISTORY, channels), dtype=bool)
+
+    def work(self, size: int) -> np.ndarray:
+        """A float64 work array of at least ``size`` elements, kept between blocks."""
+        if len(self._work) < size:
+            self._work = np.empty(size)
+        return self._work
 
 
 def _sliding_max(d: np.ndarray, width: int, s1: np.ndarray, s2: np.ndarray) -> np.ndarray:

@@ -10,8 +10,6 @@ implementations (the C library where it was built, and the numpy one).
 
 from __future__ import annotations
 
-import os
-
 import numpy as np
 import pytest
 import scipy.signal
@@ -22,19 +20,6 @@ from audition import audiofile, design, kernels
 RATE = 48000
 
 BACKENDS = ["portable", "compiled"]
-
-
-@pytest.fixture(params=BACKENDS)
-def impl(request, monkeypatch):
-    """One implementation, also made the module's own so the reader and writer use it."""
-    ns = getattr(kernels, request.param)
-    if ns is None:
-        if os.environ.get("AUDITION_REQUIRE_COMPILED"):
-            pytest.fail("the C kernels were not built (AUDITION_REQUIRE_COMPILED is set: CI has a compiler)")
-        pytest.skip("the C kernels were not built on this machine (no C compiler at install)")
-    for name in ("sos_filter", "tpdf_quantise", "pack_pcm", "unpack_pcm"):
-        monkeypatch.setattr(kernels, name, getattr(ns, name))
-    return ns
 
 
 def noise(frames, channels, seed=1, level=0.5):
@@ -133,9 +118,28 @@ def test_both_implementations_render_the_same_bytes(tmp_path, monkeypatch):
     outs = {}
     for name in BACKENDS:
         ns = getattr(kernels, name)
-        for fn in ("sos_filter", "tpdf_quantise", "pack_pcm", "unpack_pcm"):
+        for fn in vars(kernels.portable):
             monkeypatch.setattr(kernels, fn, getattr(ns, fn))
         out = tmp_path / f"{name}.wav"
         r = render.render_file(src, out, d, seed=3, sidecar=False, block_frames=10_000)
         outs[name] = (out.read_bytes(), r.peak_dbfs, r.true_peak_dbtp, r.clipped_samples)
     assert outs["portable"] == outs["compiled"]
+
+
+@pytest.mark.parametrize("screen", [True, False])
+def test_both_true_peak_scans_read_the_same_to_the_bit(screen):
+    # Same windows, same order of summation: the compiled scan equals the numpy one exactly.
+    from audition import truepeak
+
+    if kernels.compiled is None:
+        pytest.skip("the C kernels were not built on this machine")
+    rng = np.random.default_rng(7)
+    x = np.cumsum(rng.standard_normal((5000, 3)), axis=0) * 0.01  # smooth crests between samples
+    readings = []
+    for ns in (kernels.portable, kernels.compiled):
+        xx = np.vstack([np.zeros((truepeak.HISTORY, 3)), x])
+        buf = truepeak._Scratch(len(xx), 3)
+        peak, count = ns.true_peak_scan(xx, float(np.abs(x).max()), screen, buf)
+        readings.append(peak)
+        assert count > 0
+    assert readings[0] == readings[1] > np.abs(x).max()

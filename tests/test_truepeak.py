@@ -20,6 +20,11 @@ from audition import truepeak
 from audition.errors import BadParameter
 
 
+@pytest.fixture(autouse=True)
+def _each_implementation(impl):
+    """Every check here runs on both implementations of the scan (audition.kernels: numpy and C)."""
+
+
 def db(v):
     return 20 * np.log10(v)
 
@@ -108,7 +113,7 @@ def test_screen_constants_bound_every_phase():
     # (the maximum of a linear function over a box is at a vertex).
     # All 2**12 vertices are tried. The screen shares one gain and one difference constant between
     # the phases (the largest of each), so it is within a few per cent of the exact worst case.
-    g, c = truepeak._GAIN, truepeak._DIFF
+    g, c = truepeak.SCREEN_GAIN, truepeak.SCREEN_DIFF
     signs = np.array(list(itertools.product([-1.0, 1.0], repeat=12)))  # centre, then 11 differences
     worst = 0.0
     for k, h in enumerate(truepeak.ANNEX2_PHASES):
