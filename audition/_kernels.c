@@ -22,24 +22,55 @@
 #endif
 
 /* Second-order sections over a frame-major block, state carried in zi[sections][2][channels]:
- * the transposed direct form II of scipy.signal.sosfilt, operation for operation. y may be x. */
+ * the transposed direct form II of scipy.signal.sosfilt, operation for operation. y may be x.
+ * One section at a time over the whole block (a section's recursion does not depend on how the
+ * others are interleaved with it), two channels at a time with their state in registers: the
+ * recursion is bound by the latency of its own additions, and two independent channels fill
+ * the gaps. */
+static void sos_section(const double *src, double *y, ptrdiff_t frames, ptrdiff_t channels, ptrdiff_t c,
+                        int pair, const double *q, double *z)
+{
+    const double b0 = q[0], b1 = q[1], b2 = q[2], a1 = q[4], a2 = q[5];
+    double z0 = z[c], z1 = z[channels + c];
+    if (pair) {
+        double u0 = z[c + 1], u1 = z[channels + c + 1];
+        for (ptrdiff_t i = 0; i < frames; i++) {
+            const double v = src[i * channels + c], p = src[i * channels + c + 1];
+            const double w = b0 * v + z0, r = b0 * p + u0;
+            z0 = b1 * v - a1 * w + z1;
+            u0 = b1 * p - a1 * r + u1;
+            z1 = b2 * v - a2 * w;
+            u1 = b2 * p - a2 * r;
+            y[i * channels + c] = w;
+            y[i * channels + c + 1] = r;
+        }
+        z[c + 1] = u0;
+        z[channels + c + 1] = u1;
+    } else {
+        for (ptrdiff_t i = 0; i < frames; i++) {
+            const double v = src[i * channels + c];
+            const double w = b0 * v + z0;
+            z0 = b1 * v - a1 * w + z1;
+            z1 = b2 * v - a2 * w;
+            y[i * channels + c] = w;
+        }
+    }
+    z[c] = z0;
+    z[channels + c] = z1;
+}
+
 AU_EXPORT void au_sos_filter(const double *x, double *y, ptrdiff_t frames, ptrdiff_t channels,
                              const double *sos, ptrdiff_t sections, double *zi)
 {
-    for (ptrdiff_t i = 0; i < frames; i++) {
-        for (ptrdiff_t c = 0; c < channels; c++) {
-            double v = x[i * channels + c];
-            for (ptrdiff_t s = 0; s < sections; s++) {
-                const double *q = sos + 6 * s;
-                double *z0 = zi + (2 * s) * channels + c;
-                double *z1 = z0 + channels;
-                double w = q[0] * v + *z0;
-                *z0 = q[1] * v - q[4] * w + *z1;
-                *z1 = q[2] * v - q[5] * w;
-                v = w;
-            }
-            y[i * channels + c] = v;
-        }
+    if (sections == 0) {
+        for (ptrdiff_t j = 0; j < frames * channels; j++)
+            y[j] = x[j];
+        return;
+    }
+    for (ptrdiff_t s = 0; s < sections; s++) {
+        const double *src = s == 0 ? x : y;
+        for (ptrdiff_t c = 0; c < channels; c += 2)
+            sos_section(src, y, frames, channels, c, c + 1 < channels, sos + 6 * s, zi + 2 * s * channels);
     }
 }
 
