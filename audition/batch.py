@@ -732,13 +732,17 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
 def _warm_imports() -> None:
     """Import what a render needs before forking, so every worker inherits it.
 
-    scipy.signal alone takes about a second to import; imported once here,
-    forked workers start rendering at once instead of each importing it.
+    With the C kernels a render needs no scipy.signal (about a second to import);
+    the numpy kernels use its sosfilt, so then it is imported here, once, instead
+    of in every worker. The survey and the measurement use scipy.fft.
     """
-    import scipy.signal  # noqa: F401
+    import scipy.fft  # noqa: F401
     import soundfile  # noqa: F401
 
-    from audition import measure, pipeline, plan, render, spectrum  # noqa: F401
+    from audition import kernels, measure, pipeline, plan, render, spectrum  # noqa: F401
+
+    if not kernels.COMPILED:
+        import scipy.signal  # noqa: F401
 
 
 def _one_pool(jobs, n_workers, ctx, stop, gather):
