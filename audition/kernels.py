@@ -177,7 +177,7 @@ def _compiled(lib):
         from audition import truepeak
 
         rows, channels = xx.shape
-        work = scratch.work(3 * rows)
+        work = scratch.array("scan", 3 * scratch.rows)
         count = ctypes.c_int64(0)
         peak = lib.au_true_peak_scan(_ptr(xx, d, np.float64), rows - truepeak.HISTORY, channels, float(t),
                                      _ptr(truepeak.TAPS_BY_COLUMN, d, np.float64), truepeak.SCREEN_GAIN,

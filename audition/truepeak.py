@@ -195,7 +195,8 @@ class TruePeakMeter:
         Largest magnitude so far, in the units of the samples handed in (1.0 = full
         scale for float samples), the input samples included.
     windows_interpolated : int
-        Windows gathered and interpolated so far (for measuring the screen).
+        Windows gathered and interpolated so far (for measuring the screen; the compiled
+        scan raises its threshold as it goes, so it interpolates fewer than the numpy one).
     windows_total : int
         Windows seen so far (one per input sample and channel, plus the flush).
 
@@ -313,42 +314,39 @@ def _candidates(xx: np.ndarray, t: float, buf: "_Scratch"):
     """(window, channel) indices whose bound reaches ``t``; window k ends at stream index k + 11."""
     rows, channels = xx.shape
     n = rows - HISTORY
-    a = np.abs(xx, out=buf.a[:rows])
+    full, ch = buf.rows, buf.channels
+    a = np.abs(xx, out=buf.array("a", full, ch)[:rows])
     threshold = t * (1.0 - SCREEN_SLACK)
     # whole block first: no window exceeds sum|h| * max|x| (the plain bound, one reduction)
     if _ABS_SUM * float(a.max()) < threshold:
         return (np.zeros(0, dtype=np.intp),) * 2
     # |first differences|; window k uses d[k .. k+10] (its 11 differences)
-    d = np.subtract(xx[1:], xx[:-1], out=buf.d[:rows - 1])
+    d = np.subtract(xx[1:], xx[:-1], out=buf.array("d", full - 1, ch)[:rows - 1])
     np.abs(d, out=d)
-    big = _sliding_max(d, HISTORY, buf.s1, buf.s2)  # (n, channels)
+    big = _sliding_max(d, HISTORY, buf.array("s1", full - 1, ch), buf.array("s2", full - 1, ch))  # (n, channels)
     # the centre samples x[i-6], x[i-5] of window k (i = k + 11) are a[k+5], a[k+6];
     # bound/gain = max(centres) + (diff/gain) * big, compared with threshold/gain
     big *= SCREEN_DIFF / SCREEN_GAIN
-    big += np.maximum(a[5:5 + n], a[6:6 + n], out=buf.bound[:n])
-    mask = np.greater_equal(big, threshold / SCREEN_GAIN, out=buf.mask[:n])
+    big += np.maximum(a[5:5 + n], a[6:6 + n], out=buf.array("bound", full - HISTORY, ch)[:n])
+    mask = np.greater_equal(big, threshold / SCREEN_GAIN, out=buf.array("mask", full - HISTORY, ch, bool)[:n])
     # flat indices of a C-ordered (frames, channels) array: cheaper than a 2-D nonzero
     return np.divmod(np.flatnonzero(mask), channels)
 
 
 class _Scratch:
-    """The work arrays of one meter, ``rows`` frames by ``channels``."""
+    """The work arrays of one meter for blocks of up to ``rows - 11`` frames, kept between blocks."""
 
     def __init__(self, rows: int, channels: int):
+        self.rows, self.channels = rows, channels
         self.xx = np.zeros((rows, channels))
-        self._work = np.empty(0)
-        self.a = np.empty((rows, channels))
-        self.d = np.empty((rows - 1, channels))
-        self.s1 = np.empty((rows - 1, channels))
-        self.s2 = np.empty((rows - 1, channels))
-        self.bound = np.empty((rows - HISTORY, channels))
-        self.mask = np.empty((rows - HISTORY, channels), dtype=bool)
+        self._arrays: dict[str, np.ndarray] = {}
 
-    def work(self, size: int) -> np.ndarray:
-        """A float64 work array of at least ``size`` elements, kept between blocks."""
-        if len(self._work) < size:
-            self._work = np.empty(size)
-        return self._work
+    def array(self, name: str, rows: int, channels: int | None = None, dtype=np.float64) -> np.ndarray:
+        """Work array ``name``, (rows,) or (rows, channels), made on first use (each scan uses its own)."""
+        a = self._arrays.get(name)
+        if a is None:
+            a = self._arrays[name] = np.empty((rows,) if channels is None else (rows, channels), dtype=dtype)
+        return a
 
 
 def _sliding_max(d: np.ndarray, width: int, s1: np.ndarray, s2: np.ndarray) -> np.ndarray:
