@@ -143,3 +143,19 @@ def test_both_true_peak_scans_read_the_same_to_the_bit(screen):
         readings.append(peak)
         assert count > 0
     assert readings[0] == readings[1] > np.abs(x).max()
+
+
+@pytest.mark.parametrize("fmt,ext,endian", [("AIFF", "aiff", "LITTLE"), ("WAV", "wav", "BIG"), ("CAF", "caf", "LITTLE")])
+def test_files_in_the_other_byte_order_read_as_libsndfile_reads_them(impl, tmp_path, fmt, ext, endian):
+    # AIFF-C 'sowt' (little-endian AIFF), RIFX (big-endian WAV), little-endian CAF: the byte order
+    # comes from the file (libsndfile's SFC_RAW_DATA_NEEDS_ENDSWAP), not from the container's name.
+    # Reference: libsndfile's own float64 reading (soundfile, reference library).
+    p = tmp_path / f"x.{ext}"
+    k = np.random.default_rng(3).integers(-(2**15), 2**15, (3000, 2))
+    with sf.SoundFile(p, "w", RATE, 2, "PCM_16", format=fmt, endian=endian) as f:
+        f.write((k << 16).astype(np.int32))
+    with audiofile.AudioReader(p) as r:
+        assert r._layout is not None and r._layout[1] == (endian == "BIG")
+        got = np.concatenate(list(r.blocks(1000)))
+    assert np.array_equal(got, sf.read(p, dtype="float64", always_2d=True)[0])
+    assert np.array_equal(got * 2.0**15, k)
