@@ -172,6 +172,7 @@ class LoudnessMeter:
 
     def __init__(self, rate_hz: float, channels: int, channel_weights=None):
         from audition.design import check_rate
+        from audition.render import StreamingFilter
         from audition.weighting import k_weighting_sos
 
         self.rate_hz = check_rate(rate_hz)
@@ -181,8 +182,7 @@ class LoudnessMeter:
         self.weights = channel_weights_for(self.channels, channel_weights)
         self.step_frames = int(round(STEP_SECONDS * self.rate_hz))
         self.block_frames = _STEPS_PER_BLOCK * self.step_frames
-        self._sos = k_weighting_sos(self.rate_hz)
-        self._zi = np.zeros((self._sos.shape[0], 2, self.channels))
+        self._k_filter = StreamingFilter(k_weighting_sos(self.rate_hz), self.channels)  # state carried
         self._partial = np.zeros(self.channels)  # sum of y² in the unfinished segment
         self._partial_frames = 0
         self._segments: list[np.ndarray] = []  # weighted sum over channels of y², per segment
@@ -190,12 +190,10 @@ class LoudnessMeter:
 
     def feed(self, block) -> None:
         """Add the next block of samples, (frames, channels) or (frames,) for mono."""
-        from scipy.signal import sosfilt
-
         x = _as_frames(block, self.channels, name="block")
         if len(x) == 0:
             return
-        y, self._zi = sosfilt(self._sos, x, axis=0, zi=self._zi)
+        y = self._k_filter(x)
         sq = y * y
         self.frames += len(sq)
         step = self.step_frames
