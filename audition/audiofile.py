@@ -630,11 +630,6 @@ class Quantiser:
         peak = max(min(hi, s - 1), -max(lo, -s)) / s
         return k.reshape(x.shape), int(clipped), peak, unclipped
 
-    def __call__(self, x: np.ndarray) -> tuple[np.ndarray, int, float, float]:
-        """As :meth:`quantise`, the integers left-justified in 32 bits (``k * 2**(32-bits)``), as libsndfile takes them."""
-        k, clipped, peak, unclipped = self.quantise(x)
-        return left_justify(k, self.bits), clipped, peak, unclipped
-
 
 def left_justify(k: np.ndarray, bits: int) -> np.ndarray:
     """Integers of ``bits`` bits as int32 ``k * 2**(32-bits)`` (in place), the form libsndfile's int32 writes take."""
