@@ -92,6 +92,11 @@ class Job:
         re-runs the tasks of a lost worker). So an attempt that finds an output
         finished by its own run keeps it (status done), and one that finds its own
         run's unfinished output (killed before the measurement) replaces it.
+    threads : bool
+        Run the job's reading and writing in helper threads (set by :func:`run_batch`:
+        only when a worker process has two or more cores to itself). Without, a
+        worker is one thread: one core's work per worker, so ``--workers N`` keeps
+        N cores busy and no more. Not a setting: the output is the same.
     """
 
     index: int
@@ -108,6 +113,7 @@ class Job:
     overwrite: bool = False
     filter_label: str = ""
     run: str = ""
+    threads: bool = False
 
     def settings(self) -> dict:
         """The settings this job's sidecar must carry (JSON form) for ``resume`` to skip it."""
@@ -563,7 +569,7 @@ def run_job(job: Job) -> dict:
                                                               or os.path.lexists(audiofile.sidecar_path(job.output))))
         r = pipeline.render_job(job.input, job.output, spec=job.spec, auto=job.auto, noise=job.noise,
                                 subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite,
-                                provenance={"batch_run": job.run} if job.run else None)
+                                provenance={"batch_run": job.run} if job.run else None, threads=job.threads)
         row_from_render(row, r)
         row.update(status="done", reason="")
     except AuditionError as exc:
@@ -608,6 +614,21 @@ def default_workers() -> int:
         return os.cpu_count() or 1
 
 
+def local_workers(cores: int, clips: int) -> tuple[int, bool]:
+    """How a batch of ``clips`` uses ``cores`` on this machine: ``(processes, threads)``.
+
+    One worker process per core, as many as there are clips. A worker renders
+    in one thread (reading, filtering, writing in turn), so N workers keep N
+    cores busy: on a loaded machine ``--workers 1`` leaves the other cores
+    free, and the cores are not shared between a worker's threads and the
+    other workers. When there are fewer clips than cores, every process has
+    two or more cores to itself and reads ahead and writes behind in helper
+    threads (``threads`` True), as a single-file render does.
+    """
+    processes = max(1, min(cores, clips))
+    return processes, cores // processes >= 2
+
+
 def connect(address: str, timeout_seconds: float = 10.0):
     """A :class:`distributed.Client` of the cluster at ``address``.
 
@@ -640,7 +661,11 @@ def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_
     ----------
     jobs : sequence of Job
     workers : int, optional
-        Worker processes on this machine (default: the cores); ignored with ``client``.
+        Cores to use on this machine (default: all this process may run on);
+        ignored with ``client``. One worker process per core, each rendering
+        one clip at a time in one thread; when there are fewer clips than
+        cores, each process gets the spare cores for its reading and writing
+        threads (see ``Job.threads``). Cluster workers render in one thread.
     client : distributed.Client, optional
         Run on that Dask cluster instead (see :func:`connect`); the paths must be the same for its workers.
     on_row : callable, optional
@@ -665,14 +690,15 @@ def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_
             on_row(row)
 
     run = f"{os.getpid()}-{time.time_ns()}"
-    jobs = [replace(job, run=run) for job in jobs]
     interrupted = False
     if client is not None:
+        jobs = [replace(job, run=run, threads=False) for job in jobs]
         runner = f"dask cluster {getattr(client.scheduler, 'address', '?')}"
         n_workers = len(client.scheduler_info().get("workers", {}))
         interrupted = _run_on_cluster(jobs, client, gather)
     else:
-        n_workers = max(1, min(workers or default_workers(), len(jobs) or 1))
+        n_workers, threads = local_workers(workers or default_workers(), len(jobs))
+        jobs = [replace(job, run=run, threads=threads) for job in jobs]
         runner = f"{n_workers} worker process(es)"
         interrupted = _run_locally(jobs, n_workers, gather, mp_context)
     wall = time.perf_counter() - t0
@@ -706,7 +732,7 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
 
     ctx = mp_context or multiprocessing.get_context()
     if ctx.get_start_method() == "fork":
-        _warm_imports()
+        _warm_imports(jobs)
     stop = ctx.Event()
     todo = list(jobs)
     while todo:
@@ -729,18 +755,22 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
     return False
 
 
-def _warm_imports() -> None:
+def _warm_imports(jobs) -> None:
     """Import what a render needs before forking, so every worker inherits it.
 
     With the C kernels a render needs no scipy.signal (about a second to import);
     the numpy kernels use its sosfilt, so then it is imported here, once, instead
-    of in every worker. The survey and the measurement use scipy.fft.
+    of in every worker. The survey and the measurement use scipy.fft (a quarter
+    of a second to import): only for jobs that survey.
     """
-    import scipy.fft  # noqa: F401
     import soundfile  # noqa: F401
 
-    from audition import kernels, measure, pipeline, plan, render, spectrum  # noqa: F401
+    from audition import kernels, pipeline, render  # noqa: F401
 
+    if any(job.noise is not None or job.auto is not None for job in jobs):
+        import scipy.fft  # noqa: F401
+
+        from audition import measure, plan, spectrum  # noqa: F401
     if not kernels.COMPILED:
         import scipy.signal  # noqa: F401
 

@@ -89,8 +89,10 @@ class PlanSettings:
 # ---------------------------------------------------------------------------
 
 
-def survey_path(path, noise: NoiseReference | None = None):
+def survey_path(path, noise: NoiseReference | None = None, *, threads: bool = True):
     """Survey the file at ``path`` against ``noise`` in one streaming pass (flat memory).
+
+    With ``threads`` (default) a second thread reads ahead; without, all in this thread.
 
     Returns
     -------
@@ -113,7 +115,7 @@ def survey_path(path, noise: NoiseReference | None = None):
             raise BadParameter(f"{noise.clip}: the noise clip has {ninf.channels} channel(s), "
                                f"{path} has {inf.channels}; they must agree")
         noise_blocks, noise_rate = audiofile.blocks(noise.clip), ninf.rate_hz
-    return spectrum.survey_blocks(audiofile.blocks(path, ahead=True), inf.rate_hz, inf.channels, frames=inf.frames,
+    return spectrum.survey_blocks(audiofile.blocks(path, ahead=threads), inf.rate_hz, inf.channels, frames=inf.frames,
                                  noise_spans=None if noise.spans is None else list(noise.spans),
                                  noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
                                  margin_db=noise.margin_db, name=str(path),
@@ -198,8 +200,11 @@ class _PairedWelch:
         return (where == 1) & live, (where == 0) & live
 
 
-def measure_render(in_path, out_path, design, survey, noise: NoiseReference | None = None):
+def measure_render(in_path, out_path, design, survey, noise: NoiseReference | None = None, *,
+                   threads: bool = True):
     """Measure what a render did, from the input and output files (module notes).
+
+    With ``threads`` (default) two threads read the files ahead; without, all in this thread.
 
     Returns
     -------
@@ -225,7 +230,7 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
     if oinf.channels != ch or oinf.frames != survey.frames:
         raise BadInputFile(f"{out_path}: {oinf.frames} frames of {oinf.channels} channel(s); the input has "
                            f"{survey.frames} of {ch}, so the render cannot be measured against it")
-    for xb, yb in zip(audiofile.blocks(in_path, ahead=True), audiofile.blocks(out_path, ahead=True)):
+    for xb, yb in zip(audiofile.blocks(in_path, ahead=threads), audiofile.blocks(out_path, ahead=threads)):
         if len(xb) != len(yb):
             raise BadInputFile(f"{out_path}: its blocks do not line up with the input's; cannot measure the render")
         got_in = [(i0, p.copy()) for i0, p in seg_in.periodograms(xb)]
@@ -337,7 +342,8 @@ def _remove_quietly(*paths):
 
 def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None,
                noise: NoiseReference | None = None, subtype: str | None = None, dither: bool = True, seed: int = 0,
-               overwrite: bool = False, progress=None, report_path=None, provenance: dict | None = None) -> dict:
+               overwrite: bool = False, progress=None, report_path=None, provenance: dict | None = None,
+               threads: bool = True) -> dict:
     """Survey, plan (with ``auto``), render, measure and report one file.
 
     Parameters
@@ -358,6 +364,11 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         Write one self-contained HTML page there after the render succeeded.
     provenance : dict, optional
         More keys for the sidecar (e.g. the batch run that rendered the file).
+    threads : bool
+        Read ahead and write behind in helper threads (default True, for one
+        file on a machine to itself); False keeps the survey, the render and
+        the measurement in this thread (one core's work, for a batch worker).
+        The results are the same.
 
     Returns
     -------
@@ -395,7 +406,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
 
     survey = pl = None
     if noise is not None:
-        survey = survey_path(in_path, noise)
+        survey = survey_path(in_path, noise, threads=threads)
     if auto is not None:
         pl = plan_survey(survey, noise, auto)
         if pl.choice is None:
@@ -419,12 +430,12 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     record = jsonable(record)
 
     r = render_file(in_path, out_path, d, subtype=subtype, dither=dither, seed=seed, overwrite=overwrite,
-                    progress=progress, record_extra=record)
+                    progress=progress, record_extra=record, threads=threads)
     try:
         out = render_summary(r, d)
         out.update(record)
         if survey is not None:
-            measured = measure_render(in_path, out_path, d, survey, noise).to_dict()
+            measured = measure_render(in_path, out_path, d, survey, noise, threads=threads).to_dict()
             out["measured"] = jsonable(measured)
             out["warnings"] = list(pl.warnings) if pl is not None else _survey_warnings(survey)
             sidecar = _read_json(side_path)

@@ -471,6 +471,16 @@ def test_a_second_attempt_of_a_run_keeps_what_its_first_finished_and_redoes_the_
     assert batch.run_job(dataclasses.replace(other, resume=True))["status"] == "skipped"
 
 
+@pytest.mark.parametrize("cores, clips, expected", [
+    (2, 8, (2, False)), (1, 8, (1, False)), (4, 4, (4, False)),  # a worker per core, each one thread
+    (2, 1, (1, True)), (4, 2, (2, True)),  # spare cores: the workers read ahead and write behind
+    (3, 2, (2, False)), (8, 3, (3, True)),
+])
+def test_one_worker_process_per_core_and_helper_threads_only_on_spare_cores(cores, clips, expected):
+    # The rule of this project (no outside source): --workers N keeps N cores busy and no more.
+    assert batch.local_workers(cores, clips) == expected
+
+
 def test_progress_line_counts_files_hours_and_rate():
     import io
 

@@ -11,6 +11,7 @@ import json
 import math
 import os
 import re
+import threading
 from functools import lru_cache
 
 import numpy as np
@@ -72,6 +73,24 @@ def test_auto_job_measures_what_the_stems_say(mix, tmp_path):
     assert j["plan"]["choice"]["predicted"]["treble_loss_db"] <= 1.0
     for w in ("flat", "a", "itu468"):
         assert j["measured"]["snr_gain_db"][w] == pytest.approx(j["predicted"]["snr_gain_db"][w], abs=0.5)
+
+
+def test_a_job_in_one_thread_starts_no_thread_and_gives_the_same_bytes_and_figures(mix, tmp_path, monkeypatch):
+    # Project convention: threads only overlap the work, they never change it (a batch worker runs without).
+    noise = pipeline.NoiseReference(spans=((0.1, 1.4),))
+    a = pipeline.render_job(mix, tmp_path / "a.wav", auto=pipeline.PlanSettings(), noise=noise, subtype="PCM_24")
+    started = []
+    start = threading.Thread.start
+    monkeypatch.setattr(threading.Thread, "start", lambda self: (started.append(self.name), start(self))[1])
+    b = pipeline.render_job(mix, tmp_path / "b.wav", auto=pipeline.PlanSettings(), noise=noise, subtype="PCM_24",
+                            threads=False)
+    assert started == []
+    assert (tmp_path / "a.wav").read_bytes() == (tmp_path / "b.wav").read_bytes()
+    for key in ("plan", "predicted", "measured", "survey", "peak_dbfs", "true_peak_dbtp"):
+        assert a[key] == b[key], key
+    # and the threaded run does start its helpers (else the check above proves nothing)
+    pipeline.render_job(mix, tmp_path / "c.wav", auto=pipeline.PlanSettings(), noise=noise)
+    assert "audition-write" in started and "audition-read" in started
 
 
 def test_sidecar_holds_settings_plan_predicted_measured(mix, tmp_path):

@@ -44,7 +44,8 @@ def add_parser(sub) -> None:
                           "has no SNR or treble figures)")
     run_g = p.add_argument_group("running")
     run_g.add_argument("--workers", type=int, metavar="N",
-                       help="worker processes on this machine (default: the number of cores)")
+                       help="cores to use on this machine: one worker process per core, each rendering one clip "
+                            "at a time (default: all cores; --workers 1 leaves the others free)")
     run_g.add_argument("--cluster", metavar="ADDRESS",
                        help="run on an existing Dask distributed cluster (e.g. tcp://10.0.0.5:8786); every worker "
                             "must see SOURCES and OUTDIR at the same paths (pip install 'audition[cluster]')")
