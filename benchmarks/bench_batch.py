@@ -38,14 +38,10 @@ import sys
 import tempfile
 import time
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+from common import ROOT, compile_modules, env
+
 RATE = 44100
 
-
-def env():
-    e = dict(os.environ)
-    e["PYTHONPATH"] = ROOT + (os.pathsep + e["PYTHONPATH"] if e.get("PYTHONPATH") else "")
-    return e
 
 
 def make_clip(path: str, seconds: float, seed: int) -> None:
@@ -80,6 +76,7 @@ def main() -> None:
                     help="batches render only (--no-figures), with figures (survey, prediction, measurement), "
                          "or both (default)")
     a = ap.parse_args()
+    compile_modules()
     py = [sys.executable, "-m", "audition"]
     with tempfile.TemporaryDirectory(prefix="bench-batch-") as tmp:
         src = os.path.join(tmp, "src")

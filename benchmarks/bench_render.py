@@ -32,7 +32,8 @@ import sys
 import tempfile
 import time
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+from common import ROOT, compile_modules, env
+
 RATE = 48000
 
 COPY = """
@@ -58,11 +59,6 @@ subprocess.run(sys.argv[1:], check=True, stdout=subprocess.DEVNULL)
 print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)
 """
 
-
-def env():
-    e = dict(os.environ)
-    e["PYTHONPATH"] = ROOT + (os.pathsep + e["PYTHONPATH"] if e.get("PYTHONPATH") else "")
-    return e
 
 
 def make_file(path: str, minutes: float, seed: int = 1) -> None:
@@ -136,6 +132,7 @@ def main(argv=None) -> int:
     ap.add_argument("--no-rss", action="store_true", help="skip the 10- and 60-minute peak-RSS runs")
     ap.add_argument("--dir", help="work folder (default: a temporary one, removed afterwards)")
     a = ap.parse_args(argv)
+    compile_modules()
 
     with tempfile.TemporaryDirectory(dir=a.dir) as d:
         print(f"load average at the start: {load()} on {os.cpu_count()} cpus", flush=True)

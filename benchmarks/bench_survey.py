@@ -35,7 +35,8 @@ import sys
 import tempfile
 import time
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+from common import ROOT, compile_modules, env
+
 RATE = 48000
 CHANNELS = 2
 
@@ -45,11 +46,6 @@ for b in sf.blocks(sys.argv[1], blocksize=65536, dtype="float64", always_2d=True
     pass
 """
 
-
-def env() -> dict:
-    e = dict(os.environ)
-    e["PYTHONPATH"] = ROOT + (os.pathsep + e["PYTHONPATH"] if e.get("PYTHONPATH") else "")
-    return e
 
 
 def make_file(path: str, minutes: float, seed: int = 41) -> None:
@@ -99,6 +95,7 @@ def main() -> int:
     ap.add_argument("--rss-minutes", type=float, default=10.0, help="length of the shorter file (default 10)")
     ap.add_argument("--dir", help="folder for the temporary files (default: the system's)")
     args = ap.parse_args()
+    compile_modules()
 
     tmp = tempfile.mkdtemp(prefix="bench-survey-", dir=args.dir)
     try:
