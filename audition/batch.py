@@ -933,6 +933,16 @@ def check_report_path(path, outdir: str | None = None) -> tuple[str, str]:
     return csv_path, json_path
 
 
+def check_plot_path(path, outdir: str | None = None) -> str:
+    """Refuse a batch picture whose folder is missing or that names a folder (checked before the batch starts)."""
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder) and not (outdir is not None and _inside_lexically(folder, outdir)):
+        raise OutputRefused(f"plot {path!r}: the folder {folder!r} does not exist")
+    if os.path.isdir(path):
+        raise OutputRefused(f"plot {path!r}: is a folder; give the picture a file name ending in .png")
+    return path
+
+
 def write_report(path, result: BatchResult) -> tuple[str, str]:
     """Write the batch report as CSV (one row per clip) and JSON (summary and rows), each atomically.
 

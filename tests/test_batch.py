@@ -124,6 +124,36 @@ def test_bad_files_are_reported_and_the_good_outputs_are_right(tmp_path, good_an
     assert names == ["a.wav", "corrupt.wav", "empty.flac", os.path.join("tape2", "b.wav"), "vorbis.ogg"]
 
 
+def test_batch_picture_draws_the_report_figures_and_names_the_failures(tmp_path, good_and_bad):
+    from matplotlib import image
+
+    from audition.plots.batch import batch_figure
+
+    out = tmp_path / "out"
+    rc = main(["batch", str(good_and_bad), str(out), "--f0", str(F0), "--workers", "1", "--noise-span", "0:0.45",
+               "--plot", str(out / "summary.png"), "--quiet"])
+    assert rc == 1
+    assert image.imread(out / "summary.png").shape[:2] == (744, 1560)  # 13 x 6.2 in at 120 dpi
+    rep = json.loads((out / "batch-report.json").read_text())
+    result = batch.BatchResult(rep["rows"], rep["summary"], rep["interrupted"])
+    fig = batch_figure(result, "itu468")
+    gain_ax, peak_ax = fig.axes
+    measured = next(line for line in gain_ax.lines if line.get_label() == "rendered: measured on the output")
+    predicted = next(line for line in gain_ax.lines if line.get_label() == "rendered: predicted from the survey")
+    done = [r for r in rep["rows"] if r["status"] == "done"]
+    assert len(done) == 2
+    # the points are the report's figures, clip for clip
+    np.testing.assert_array_equal(measured.get_xdata(), [r["measured_treble_loss_db"] for r in done])
+    np.testing.assert_array_equal(measured.get_ydata(), [r["measured_snr_gain_db_itu468"] for r in done])
+    np.testing.assert_array_equal(predicted.get_ydata(), [r["predicted_snr_gain_db_itu468"] for r in done])
+    assert sum(p.get_height() for p in peak_ax.patches) == 2  # one true peak per rendered clip
+    notes = fig.texts[-1].get_text()
+    assert "2 rendered, 0 already done, 3 failed" in notes
+    for name in ("corrupt.wav", "empty.flac", "vorbis.ogg"):
+        reason = next(r["reason"] for r in rep["rows"] if r["input"].endswith(name))
+        assert f"failed: {name}: {reason[:60]}" in notes
+
+
 def test_report_figures_match_the_noise_bandwidth_of_the_filter(tmp_path):
     """White hiss through a 2nd-order Butterworth low-pass: the measured flat noise reduction in the report."""
     src, out = tmp_path / "src", tmp_path / "out"
@@ -178,6 +208,10 @@ BAD_ARGS = {
                                                                  str(t / "src" / "o"), "--f0", "6000"],
                                                       ["pattern", "searches"]),
     "zero workers": (lambda t: [str(t / "src"), str(t / "out"), "--f0", "6000", "--workers", "0"], ["--workers"]),
+    "plot folder missing": (lambda t: [str(t / "src"), str(t / "out"), "--f0", "6000", "--plot",
+                                       str(t / "nowhere" / "b.png")], ["plot", "nowhere", "does not exist"]),
+    "plot is a folder": (lambda t: [str(t / "src"), str(t / "out"), "--f0", "6000", "--plot", str(t / "src2")],
+                         ["plot", "is a folder"]),
 }
 
 
@@ -496,6 +530,10 @@ def test_progress_line_counts_files_hours_and_rate():
     assert "2/2 files, 1 failed, 0.50 h of audio" in text  # the last row always draws
     assert "failed   b: 'b': empty file" in text
     assert "x real time" in text
+    # with figures, the per-file line gives the measured SNR gain (the predicted one only without a measurement)
+    p({"status": "done", "duration_seconds": 60.0, "input": "c", "output": "C", "seconds": 0.5, "reason": "",
+       "measured_snr_gain_db_itu468": 7.26, "predicted_snr_gain_db_itu468": 7.41})
+    assert "C (60.0 s of audio, SNR gain +7.3 dB itu468 measured) in 0.50 s" in s.getvalue()
 
 
 # ---------------------------------------------------------------------------

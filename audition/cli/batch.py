@@ -54,6 +54,8 @@ def add_parser(sub) -> None:
     rep = p.add_argument_group("report")
     rep.add_argument("--report", metavar="FILE", help=f"report path: FILE.csv and FILE.json (default "
                      f"OUTDIR/{DEFAULT_REPORT}.csv and .json)")
+    rep.add_argument("--plot", metavar="FILE.png", help="draw the batch: SNR gain against treble loss per clip "
+                     "(predicted and measured), the outputs' true peaks, the counts and the failures")
     rep.add_argument("--json", action="store_true", help="print the JSON report instead of the summary")
     rep.add_argument("--verbose", action="store_true", help="one line per clip as it ends")
     rep.add_argument("--quiet", action="store_true", help="no progress bar and no summary")
@@ -138,8 +140,12 @@ def per_file_line(row: dict) -> str:
     if what == "failed" or what == "not run":
         return f"{what:8} {row['input']}: {row['reason']}"
     dur = row.get("duration_seconds") or 0.0
-    gain = row.get("measured_noise_reduction_db_itu468", row.get("predicted_snr_gain_db_itu468"))
-    figures = f", itu468 {gain:+.1f} dB" if isinstance(gain, (int, float)) else ""
+    figures = ""
+    for kind in ("measured", "predicted"):
+        gain = row.get(f"{kind}_snr_gain_db_itu468")
+        if isinstance(gain, (int, float)):
+            figures = f", SNR gain {gain:+.1f} dB itu468 {kind}"
+            break
     took = f" in {row['seconds']:.2f} s" if what == "done" and row.get("seconds") else ""
     return f"{what:8} {row['output']} ({dur:.1f} s of audio{figures}){took}"
 
@@ -188,6 +194,8 @@ def run(args) -> int:
     report_path = args.report or os.path.join(args.outdir, DEFAULT_REPORT)
     if args.report:
         batch.check_report_path(report_path, args.outdir)
+    if args.plot:
+        batch.check_plot_path(args.plot, args.outdir)
     client = batch.connect(args.cluster, args.cluster_timeout) if args.cluster else None
     try:
         # every check has passed: from here on things are written
@@ -206,6 +214,13 @@ def run(args) -> int:
             client.close()
     os.makedirs(os.path.dirname(os.path.abspath(report_path)), exist_ok=True)  # --report below OUTDIR
     paths = batch.write_report(report_path, result)
+    if args.plot:
+        from audition.plots.batch import plot_batch
+
+        os.makedirs(os.path.dirname(os.path.abspath(args.plot)), exist_ok=True)  # --plot below OUTDIR
+        plot_batch(result, args.plot, weighting=getattr(args, "weighting", None) or "itu468",
+                   title=f"audition batch: {' '.join(args.sources)} -> {args.outdir}",
+                   budget_db=auto.budget_db if auto is not None else None)
     if args.json:
         with open(paths[1], encoding="utf-8") as fh:
             print(json.dumps(json.load(fh), indent=2))
