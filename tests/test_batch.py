@@ -147,6 +147,9 @@ def test_batch_picture_draws_the_report_figures_and_names_the_failures(tmp_path,
     np.testing.assert_array_equal(measured.get_ydata(), [r["measured_snr_gain_db_itu468"] for r in done])
     np.testing.assert_array_equal(predicted.get_ydata(), [r["predicted_snr_gain_db_itu468"] for r in done])
     assert sum(p.get_height() for p in peak_ax.patches) == 2  # one true peak per rendered clip
+    # the lowest gain and the largest loss are named, by their place under OUTDIR
+    assert {t.get_text() for t in gain_ax.texts} <= {"a.wav", os.path.join("tape2", "b.wav")}
+    assert len(gain_ax.texts) >= 1
     notes = fig.texts[-1].get_text()
     assert "2 rendered, 0 already done, 3 failed" in notes
     for name in ("corrupt.wav", "empty.flac", "vorbis.ogg"):

@@ -20,17 +20,22 @@ def _num(v) -> float | None:
 
 
 def figure_points(rows, weighting: str) -> list[dict]:
-    """Per clip with figures: name, status, measured and predicted (treble loss, SNR gain) in dB."""
+    """Per clip with figures: name, status, measured and predicted (treble loss, SNR gain) in dB.
+
+    The name is the output's path below the folder all the outputs share (two
+    clips of the same file name in different folders stay apart).
+    """
+    kept = [r for r in rows if r["status"] in ("done", "skipped")]
+    paths = [os.path.abspath(r["output"]) for r in kept]
+    base = os.path.commonpath(paths) if len(paths) > 1 else os.path.dirname(paths[0]) if paths else ""
     pts = []
-    for r in rows:
-        if r["status"] not in ("done", "skipped"):
-            continue
+    for r, path in zip(kept, paths):
         m = (_num(r.get("measured_treble_loss_db")), _num(r.get(f"measured_snr_gain_db_{weighting}")))
         p = (_num(r.get("predicted_treble_loss_db")), _num(r.get(f"predicted_snr_gain_db_{weighting}")))
         if None in m:
             continue
-        pts.append({"name": os.path.basename(r["output"] or r["input"]), "status": r["status"], "measured": m,
-                    "predicted": None if None in p else p})
+        pts.append({"name": os.path.relpath(path, base) if base else os.path.basename(path), "status": r["status"],
+                    "measured": m, "predicted": None if None in p else p})
     return pts
 
 
@@ -66,7 +71,7 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
     fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(13, 6.2), width_ratios=(1.6, 1))
     pts = figure_points(rows, weighting)
     if pts:
-        for status, colour, name in (("done", "C0", "rendered"), ("skipped", "C1", "already done (its sidecar)")):
+        for status, colour, name in (("done", "C0", "rendered"), ("skipped", "C2", "already done (its sidecar)")):
             sel = [p for p in pts if p["status"] == status]
             if not sel:
                 continue
@@ -94,8 +99,10 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
         ax1.set_xlim(min(0.0, min(xs)), max(xs) * 1.15 + 0.05)
         ax1.legend(loc="lower left", fontsize=8)
     else:
-        ax1.text(0.5, 0.5, "no SNR or treble figures: the clips were rendered without a survey (--no-figures)",
-                 ha="center", va="center", transform=ax1.transAxes, fontsize=9, wrap=True)
+        rendered = any(r["status"] in ("done", "skipped") for r in rows)
+        why = ("no SNR or treble figures: the clips were rendered without a survey (--no-figures)" if rendered
+               else "no clip was rendered")
+        ax1.text(0.5, 0.5, why, ha="center", va="center", transform=ax1.transAxes, fontsize=9, wrap=True)
     ax1.set_xlabel("treble loss (dB of programme above the treble edge)")
     ax1.set_ylabel(f"SNR gain, {weighting} weighted (dB)")
     ax1.set_title(f"per clip: what the filter gained and cost ({len(pts)} of {len(rows)} clips with figures)",
@@ -131,9 +138,11 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
              + (f", {c['not_run']} not run" if c["not_run"] else "")
              + f"; {s['rendered_audio_seconds'] / 60.0:,.1f} min of audio rendered in {s['wall_seconds']:.1f} s"]
     failed = [r for r in rows if r["status"] == "failed"]
+    inputs = [os.path.abspath(r["input"]) for r in rows]
+    base = os.path.commonpath(inputs) if len(inputs) > 1 else os.path.dirname(inputs[0]) if inputs else ""
     for r in failed[:MAX_FAILURES]:
         reason = r["reason"] if len(r["reason"]) <= 110 else r["reason"][:107] + "..."
-        notes.append(f"failed: {os.path.basename(r['input'])}: {reason}")
+        notes.append(f"failed: {os.path.relpath(os.path.abspath(r['input']), base)}: {reason}")
     if len(failed) > MAX_FAILURES:
         notes.append(f"and {len(failed) - MAX_FAILURES} more failed (see the report)")
     fig.suptitle(title or "batch summary", fontsize=11)
