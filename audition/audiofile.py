@@ -704,19 +704,25 @@ class AtomicWriter:
                     except (sf.LibsndfileError, RuntimeError):
                         continue  # a field this container cannot carry (W64 carries none)
                     self.metadata_written.append(k)
-        except BaseException as exc:
+            self.channels = channels
+            self._layout = _byte_layout(self._sf)
+            self.meter = TruePeakMeter(channels)
+            self._frames = 0
+            self._peak = 0.0
+            self._unclipped = 0.0
+            self._clipped = 0
+            self._state = "open"
+        except BaseException as exc:  # Ctrl-C included: the constructor leaves no temporary file behind
+            sfile = getattr(self, "_sf", None)
+            if sfile is not None:  # close it before its descriptor goes, or its header lands on a reused one
+                try:
+                    sfile.close()
+                except Exception:
+                    pass
             self._tmp.remove()
             if isinstance(exc, (sf.LibsndfileError, RuntimeError, ValueError)):
                 raise OutputRefused(f"{self.path!r}: cannot be written as {format} {subtype} ({exc})") from None
             raise
-        self.channels = channels
-        self._layout = _byte_layout(self._sf)
-        self.meter = TruePeakMeter(channels)
-        self._frames = 0
-        self._peak = 0.0
-        self._unclipped = 0.0
-        self._clipped = 0
-        self._state = "open"
 
     def _check_room(self, frames: int, channels: int):
         size = frames * channels * _SUBTYPE_BYTES[self.subtype] + 65536
@@ -880,11 +886,15 @@ class _TempFile:
                                                   suffix=_PART_SUFFIX)
         except OSError as exc:
             raise OutputRefused(f"{target!r}: cannot create a file in {folder!r} ({_os_message(exc)})") from None
-        # mkstemp makes 0600; give the output the permissions a plain new file would get
-        umask = os.umask(0)
-        os.umask(umask)
-        os.fchmod(self.fd, 0o666 & ~umask)
         self.open = True
+        try:
+            # mkstemp makes 0600; give the output the permissions a plain new file would get
+            umask = os.umask(0)
+            os.umask(umask)
+            os.fchmod(self.fd, 0o666 & ~umask)
+        except BaseException:  # Ctrl-C included: no temporary file outlives its maker
+            self.remove()
+            raise
 
     def sync(self):
         os.fsync(self.fd)

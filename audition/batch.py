@@ -91,7 +91,8 @@ class Job:
         dies takes the rows of the others with it (a local pool kills them all; Dask
         re-runs the tasks of a lost worker). So an attempt that finds an output
         finished by its own run keeps it (status done), and one that finds its own
-        run's unfinished output (killed before the measurement) replaces it.
+        run's unfinished output (killed before the measurement) replaces it, as it
+        replaces an output without a sidecar (killed between committing the two).
     threads : bool
         Run the job's reading and writing in helper threads (set by :func:`run_batch`:
         only when a worker process has two or more cores to itself). Without, a
@@ -563,10 +564,12 @@ def run_job(job: Job) -> dict:
                     row.update(status="skipped", reason="done by an earlier run (same input bytes and settings)")
                 row["seconds"] = time.perf_counter() - t0
                 return row
-        from audition import audiofile
-
-        overwrite = job.overwrite or ours or (job.resume and (os.path.lexists(job.output)
-                                                              or os.path.lexists(audiofile.sidecar_path(job.output))))
+        # What a batch may replace was settled before it began (plan_jobs refuses existing outputs without
+        # --resume or --overwrite). So an output found here without a readable sidecar, or a sidecar without
+        # its output, is what an earlier attempt of this run left when it was killed between the two renames
+        # of its commit, or in its clean-up: replace it. Another run's sidecar is refused (a safety net for
+        # callers that did not plan the jobs with plan_jobs).
+        overwrite = job.overwrite or job.resume or ours or side is None
         r = pipeline.render_job(job.input, job.output, spec=job.spec, auto=job.auto, noise=job.noise,
                                 subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite,
                                 provenance={"batch_run": job.run} if job.run else None, threads=job.threads)

@@ -210,11 +210,11 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
             raise BadParameter(f"{in_path!r}: the design is for {design.rate_hz:g} Hz but the file is at "
                                f"{reader.rate_hz:g} Hz; design it with the file's rate")
         out_subtype = output_subtype(reader.subtype, subtype, reader.format, in_path)
+        side = None
         writer = audiofile.AtomicWriter(out_path, reader.rate_hz, reader.channels, format=reader.format,
                                         subtype=out_subtype, overwrite=overwrite, inputs=[in_path],
                                         metadata=reader.metadata, dither=dither, seed=seed,
                                         frames_hint=reader.frames)
-        side = None
         try:
             filt = StreamingFilter(design.sos, reader.channels)
             # timed from here: scipy's one-off import (about a second) says nothing of the render

@@ -399,6 +399,22 @@ def test_wav_beyond_4_gib_is_refused_before_writing(tmp_path):
     assert folder_listing(tmp_path) == []
 
 
+@pytest.mark.parametrize("where", ["temporary file's permissions", "writer's meter"])
+def test_ctrl_c_while_the_writer_is_being_made_leaves_nothing(tmp_path, monkeypatch, where):
+    # Ctrl-C can land between creating the temporary file and the end of the constructor, before
+    # any caller holds the writer to abort it: the constructor itself must take the file back.
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    if where == "writer's meter":
+        monkeypatch.setattr(audiofile, "TruePeakMeter", interrupted)
+    else:
+        monkeypatch.setattr(audiofile.os, "fchmod", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        audiofile.AtomicWriter(tmp_path / "out.wav", 48000, 2, format="WAV", subtype="PCM_24")
+    assert os.listdir(tmp_path) == []
+
+
 def test_sidecar_is_written_atomically(tmp_path):
     p = audiofile.sidecar_path(tmp_path / "o.wav")
     assert p.endswith("o.wav.json")

@@ -506,6 +506,17 @@ def test_a_second_attempt_of_a_run_keeps_what_its_first_finished_and_redoes_the_
     plain = batch.run_job(other)
     assert plain["status"] == "failed" and "exist" in plain["reason"]
     assert batch.run_job(dataclasses.replace(other, resume=True))["status"] == "skipped"
+    # a first attempt killed between renaming its output into place and renaming its sidecar: the
+    # output is there without a sidecar (the batch refused existing outputs before it began, so this
+    # one is its own); and one killed in its clean-up leaves the sidecar alone
+    b_bytes = open(jobs[1].output, "rb").read()
+    for leftover in (side_b, jobs[1].output):
+        os.remove(leftover)
+        redo = batch.run_job(run1[1])
+        assert (redo["status"], redo["reason"]) == ("done", "")
+        assert open(jobs[1].output, "rb").read() == b_bytes  # the same render (seeded dither), finished
+        again_rec = json.load(open(side_b))
+        assert again_rec["batch_run"] == "run-1" and again_rec["measured"] == measured
 
 
 @pytest.mark.parametrize("cores, clips, expected", [
