@@ -924,25 +924,29 @@ def _inside_lexically(path: str, folder: str) -> bool:
     return p == f or p.startswith(f.rstrip(os.sep) + os.sep)
 
 
+def _check_new_file(path: str, outdir: str | None, what: str, hint: str) -> None:
+    """Refuse a file the batch will write whose folder is missing or that names a folder.
+
+    Checked before the batch starts; a folder below OUTDIR passes, as OUTDIR itself is made later.
+    """
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder) and not (outdir is not None and _inside_lexically(folder, outdir)):
+        raise OutputRefused(f"{what} {path!r}: the folder {folder!r} does not exist")
+    if os.path.isdir(path):
+        raise OutputRefused(f"{what} {path!r}: is a folder; {hint}")
+
+
 def check_report_path(path, outdir: str | None = None) -> tuple[str, str]:
     """Refuse a report whose folder is missing (checked before the batch starts); OUTDIR itself is made later."""
     csv_path, json_path = report_paths(path)
     for p in (csv_path, json_path):
-        folder = os.path.dirname(os.path.abspath(p))
-        if not os.path.isdir(folder) and not (outdir is not None and _inside_lexically(folder, outdir)):
-            raise OutputRefused(f"report {p!r}: the folder {folder!r} does not exist")
-        if os.path.isdir(p):
-            raise OutputRefused(f"report {p!r}: is a folder; name a file")
+        _check_new_file(p, outdir, "report", "name a file")
     return csv_path, json_path
 
 
 def check_plot_path(path, outdir: str | None = None) -> str:
     """Refuse a batch picture whose folder is missing or that names a folder (checked before the batch starts)."""
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder) and not (outdir is not None and _inside_lexically(folder, outdir)):
-        raise OutputRefused(f"plot {path!r}: the folder {folder!r} does not exist")
-    if os.path.isdir(path):
-        raise OutputRefused(f"plot {path!r}: is a folder; give the picture a file name ending in .png")
+    _check_new_file(path, outdir, "plot", "give the picture a file name ending in .png")
     return path
 
 

@@ -19,6 +19,15 @@ def _num(v) -> float | None:
     return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) else None
 
 
+def short_names(paths) -> list[str]:
+    """Each path below the folder all of them share (two files of one name in different folders stay apart)."""
+    paths = [os.path.abspath(p) for p in paths]
+    if not paths:
+        return []
+    base = os.path.commonpath(paths) if len(paths) > 1 else os.path.dirname(paths[0])
+    return [os.path.relpath(p, base) for p in paths]
+
+
 def figure_points(rows, weighting: str) -> list[dict]:
     """Per clip with figures: name, status, measured and predicted (treble loss, SNR gain) in dB.
 
@@ -26,16 +35,13 @@ def figure_points(rows, weighting: str) -> list[dict]:
     clips of the same file name in different folders stay apart).
     """
     kept = [r for r in rows if r["status"] in ("done", "skipped")]
-    paths = [os.path.abspath(r["output"]) for r in kept]
-    base = os.path.commonpath(paths) if len(paths) > 1 else os.path.dirname(paths[0]) if paths else ""
     pts = []
-    for r, path in zip(kept, paths):
+    for r, name in zip(kept, short_names(r["output"] for r in kept)):
         m = (_num(r.get("measured_treble_loss_db")), _num(r.get(f"measured_snr_gain_db_{weighting}")))
         p = (_num(r.get("predicted_treble_loss_db")), _num(r.get(f"predicted_snr_gain_db_{weighting}")))
         if None in m:
             continue
-        pts.append({"name": os.path.relpath(path, base) if base else os.path.basename(path), "status": r["status"],
-                    "measured": m, "predicted": None if None in p else p})
+        pts.append({"name": name, "status": r["status"], "measured": m, "predicted": None if None in p else p})
     return pts
 
 
@@ -137,12 +143,11 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
     notes = [f"{s['files']} clip(s): {c['done']} rendered, {c['skipped']} already done, {c['failed']} failed"
              + (f", {c['not_run']} not run" if c["not_run"] else "")
              + f"; {s['rendered_audio_seconds'] / 60.0:,.1f} min of audio rendered in {s['wall_seconds']:.1f} s"]
-    failed = [r for r in rows if r["status"] == "failed"]
-    inputs = [os.path.abspath(r["input"]) for r in rows]
-    base = os.path.commonpath(inputs) if len(inputs) > 1 else os.path.dirname(inputs[0]) if inputs else ""
-    for r in failed[:MAX_FAILURES]:
+    names = short_names(r["input"] for r in rows)
+    failed = [(name, r) for name, r in zip(names, rows) if r["status"] == "failed"]
+    for name, r in failed[:MAX_FAILURES]:
         reason = r["reason"] if len(r["reason"]) <= 110 else r["reason"][:107] + "..."
-        notes.append(f"failed: {os.path.relpath(os.path.abspath(r['input']), base)}: {reason}")
+        notes.append(f"failed: {name}: {reason}")
     if len(failed) > MAX_FAILURES:
         notes.append(f"and {len(failed) - MAX_FAILURES} more failed (see the report)")
     fig.suptitle(title or "batch summary", fontsize=11)
