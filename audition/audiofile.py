@@ -713,13 +713,7 @@ class AtomicWriter:
             self._clipped = 0
             self._state = "open"
         except BaseException as exc:  # Ctrl-C included: the constructor leaves no temporary file behind
-            sfile = getattr(self, "_sf", None)
-            if sfile is not None:  # close it before its descriptor goes, or its header lands on a reused one
-                try:
-                    sfile.close()
-                except Exception:
-                    pass
-            self._tmp.remove()
+            self._discard()
             if isinstance(exc, (sf.LibsndfileError, RuntimeError, ValueError)):
                 raise OutputRefused(f"{self.path!r}: cannot be written as {format} {subtype} ({exc})") from None
             raise
@@ -827,13 +821,21 @@ class AtomicWriter:
         """Drop everything written so far; the target is untouched."""
         if self._state == "committed":
             return
+        self._discard()
+        self._state = "aborted"
+
+    def _discard(self) -> None:
+        """Close libsndfile's handle, then drop the temporary file.
+
+        In that order: closed later, the handle would write its header to a descriptor already reused.
+        """
+        sfile = getattr(self, "_sf", None)  # absent when the constructor failed before opening it
         try:
-            if not self._sf.closed:
-                self._sf.close()
+            if sfile is not None and not sfile.closed:
+                sfile.close()
         except Exception:  # the file is being thrown away; its close errors do not matter
             pass
         self._tmp.remove()
-        self._state = "aborted"
 
     def __enter__(self):
         return self

@@ -43,7 +43,6 @@ from common import ROOT, compile_modules, env
 RATE = 44100
 
 
-
 def make_clip(path: str, seconds: float, seed: int) -> None:
     """A 44.1 kHz stereo PCM_24 WAV of seeded noise and tones."""
     import numpy as np

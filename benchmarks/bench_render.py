@@ -60,7 +60,6 @@ print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)
 """
 
 
-
 def make_file(path: str, minutes: float, seed: int = 1) -> None:
     """A 48 kHz stereo PCM_24 WAV of ``minutes`` of seeded noise and tones, written in blocks."""
     import numpy as np

@@ -47,7 +47,6 @@ for b in sf.blocks(sys.argv[1], blocksize=65536, dtype="float64", always_2d=True
 """
 
 
-
 def make_file(path: str, minutes: float, seed: int = 41) -> None:
     """``minutes`` of one synthesised minute repeated, 48 kHz stereo PCM_24 (no dither: not needed here)."""
     import numpy as np

@@ -73,7 +73,10 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
     ``budget_db``: the treble-loss budget the clips were planned to (``--auto``), drawn as a line.
     """
     plt = pyplot()
+    from matplotlib.ticker import MaxNLocator
+
     rows = result.rows
+    kept = [r for r in rows if r["status"] in ("done", "skipped")]  # rendered by this run or an earlier one
     fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(13, 6.2), width_ratios=(1.6, 1))
     pts = figure_points(rows, weighting)
     if pts:
@@ -105,8 +108,7 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
         ax1.set_xlim(min(0.0, min(xs)), max(xs) * 1.15 + 0.05)
         ax1.legend(loc="lower left", fontsize=8)
     else:
-        rendered = any(r["status"] in ("done", "skipped") for r in rows)
-        why = ("no SNR or treble figures: the clips were rendered without a survey (--no-figures)" if rendered
+        why = ("no SNR or treble figures: the clips were rendered without a survey (--no-figures)" if kept
                else "no clip was rendered")
         ax1.text(0.5, 0.5, why, ha="center", va="center", transform=ax1.transAxes, fontsize=9, wrap=True)
     ax1.set_xlabel("treble loss (dB of programme above the treble edge)")
@@ -115,8 +117,7 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
                   fontsize=10)
     ax1.grid(True, alpha=0.3)
 
-    peaks = [(_num(r.get("true_peak_dbtp")), r.get("clipped_samples") or 0) for r in rows
-             if r["status"] in ("done", "skipped")]
+    peaks = [(_num(r.get("true_peak_dbtp")), r.get("clipped_samples") or 0) for r in kept]
     peaks = [(tp, c) for tp, c in peaks if tp is not None]
     if peaks:
         tps = [tp for tp, _ in peaks]
@@ -133,8 +134,6 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
         ax2.set_title("true peak of the outputs", fontsize=10)
     ax2.set_xlabel("true peak (dBTP, ITU-R BS.1770-4)")
     ax2.set_ylabel("clips")
-    from matplotlib.ticker import MaxNLocator
-
     ax2.yaxis.set_major_locator(MaxNLocator(integer=True))
     ax2.grid(True, alpha=0.3)
 
