@@ -124,8 +124,7 @@ def k_filter(data, rate_hz: float, zi=None) -> tuple[np.ndarray, np.ndarray]:
         State to pass as ``zi`` with the next block; blocks so chained give
         the one-pass result.
     """
-    from scipy.signal import sosfilt
-
+    from audition.render import StreamingFilter
     from audition.weighting import k_weighting_sos
 
     x = _as_frames(data)
@@ -136,8 +135,10 @@ def k_filter(data, rate_hz: float, zi=None) -> tuple[np.ndarray, np.ndarray]:
     if zi.shape != (sos.shape[0], 2, x.shape[1]):
         raise BadParameter(f"zi shape={zi.shape!r}: expected {(sos.shape[0], 2, x.shape[1])!r} "
                            "(the zf returned with the previous block)")
-    y, zf = sosfilt(sos, x, axis=0, zi=zi)
-    return y, zf
+    filt = StreamingFilter(sos, x.shape[1])  # the meter's filter, with the state handed in and out
+    filt.zi = zi.copy()  # the caller's array stays as it was
+    y = filt(x)
+    return y, filt.zi
 
 
 class LoudnessMeter:
