@@ -2,10 +2,10 @@
 
 The package is laid out along the flow of the work::
 
-    audiofile -> spectrum -> measure -> plan -> design -> render -> audiofile
+    io -> survey -> measure -> plan -> design -> render -> io
 
 The DSP core (:mod:`audition.design`, :mod:`audition.weighting`,
-:mod:`audition.spectrum`, :mod:`audition.measure`) takes arrays and numbers and
+:mod:`audition.survey`, :mod:`audition.measure`) takes arrays and numbers and
 returns arrays, numbers and small frozen dataclasses; only :mod:`audition.cli`
 parses arguments, prints and chooses exit codes.
 """

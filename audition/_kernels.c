@@ -143,11 +143,11 @@ AU_EXPORT void au_unpack_pcm(const uint8_t *raw, double *y, ptrdiff_t n, int wid
     }
 }
 
-/* The true-peak scan of one block (ITU-R BS.1770-4 Annex 2, 4x; see audition/truepeak.py for the
+/* The true-peak scan of one block (ITU-R BS.1770-4 Annex 2, 4x; see audition/truepeak.py and annex2.py for the
  * maths of the screen). xx holds `rows` = n + 11 frames of `channels` (frame-major): 11 frames of
  * history, then the block. Window k (0 <= k < n) is xx[k .. k+11], oldest first; its four
  * interpolated values are summed one tap column at a time, oldest first (taps[col][phase]), the
- * order truepeak.interpolate_windows uses, so each value is the same to the bit. With `screen`,
+ * order annex2.interpolate_windows uses, so each value is the same to the bit. With `screen`,
  * a window is interpolated only when its bound gain*max(|x[k+5]|, |x[k+6]|) + diff*max|first
  * differences| reaches t*(1 - slack), t the running maximum; the bound is a proof, so the
  * returned maximum equals that of interpolating every window. scratch: 3*rows doubles.

@@ -17,7 +17,7 @@ operations in the same order as its reference, so the results are equal, not clo
 * :func:`sos_filter` is the transposed direct form II recursion of
   :func:`scipy.signal.sosfilt` (tests compare the two exactly);
 * :func:`tpdf_quantise` is ``rint(x * s + d)`` with the dither ``d`` made of two
-  16-bit uniforms, as :class:`audition.audiofile.Quantiser` documents;
+  16-bit uniforms, as :class:`audition.io.quantise.Quantiser` documents;
 * :func:`unpack_pcm` and :func:`pack_pcm` convert between two's-complement PCM bytes
   and numbers exactly as libsndfile does for PCM_16/24/32 (its doubles are the
   integers over ``2**(bits-1)``, an exact scaling; tests compare both ways);
@@ -90,9 +90,9 @@ def _np_unpack_pcm(raw, width, big_endian, y):
 
 
 def _np_true_peak_scan(xx, t, screen, scratch):
-    from audition import truepeak
+    from audition import annex2
 
-    return truepeak.scan_block(xx, t, screen, scratch)
+    return annex2.scan_block(xx, t, screen, scratch)
 
 
 portable = SimpleNamespace(sos_filter=_np_sos_filter, tpdf_quantise=_np_tpdf_quantise,
@@ -174,14 +174,14 @@ def _compiled(lib):
                           int(bool(big_endian)))
 
     def true_peak_scan(xx, t, screen, scratch):
-        from audition import truepeak
+        from audition import annex2
 
         rows, channels = xx.shape
         work = scratch.array("scan", 3 * scratch.rows)
         count = ctypes.c_int64(0)
-        peak = lib.au_true_peak_scan(_ptr(xx, d, np.float64), rows - truepeak.HISTORY, channels, float(t),
-                                     _ptr(truepeak.TAPS_BY_COLUMN, d, np.float64), truepeak.SCREEN_GAIN,
-                                     truepeak.SCREEN_DIFF, truepeak.SCREEN_SLACK, int(bool(screen)),
+        peak = lib.au_true_peak_scan(_ptr(xx, d, np.float64), rows - annex2.HISTORY, channels, float(t),
+                                     _ptr(annex2.TAPS_BY_COLUMN, d, np.float64), annex2.SCREEN_GAIN,
+                                     annex2.SCREEN_DIFF, annex2.SCREEN_SLACK, int(bool(screen)),
                                      _ptr(work, d, np.float64, True), ctypes.byref(count))
         return float(peak), int(count.value)
 

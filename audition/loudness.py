@@ -124,7 +124,7 @@ def k_filter(data, rate_hz: float, zi=None) -> tuple[np.ndarray, np.ndarray]:
         State to pass as ``zi`` with the next block; blocks so chained give
         the one-pass result.
     """
-    from audition.render import StreamingFilter
+    from audition.streamfilter import StreamingFilter
     from audition.weighting import k_weighting_sos
 
     x = _as_frames(data)
@@ -173,7 +173,7 @@ class LoudnessMeter:
 
     def __init__(self, rate_hz: float, channels: int, channel_weights=None):
         from audition.design import check_rate
-        from audition.render import StreamingFilter
+        from audition.streamfilter import StreamingFilter
         from audition.weighting import k_weighting_sos
 
         self.rate_hz = check_rate(rate_hz)

@@ -16,13 +16,13 @@ are removed again.
 Measurement after a render
 --------------------------
 Input and output are read together, block by block, and cut into the same
-Welch segments (:class:`audition.spectrum.Segmenter`). A segment lying wholly
+Welch segments (:class:`audition.survey.segments.Segmenter`). A segment lying wholly
 inside a noise span is noise reference, one touching no span is programme;
 segments that are digital silence in the input count as neither. The measured
 noise reduction per weighting is the fall of the noise reference's weighted
 level; the measured treble loss and SNR gain use the programme estimates
 (programme segments minus noise, band-averaged and floored at zero as in
-:func:`audition.spectrum.programme_estimate`) of input and output. With a
+:func:`audition.survey.programme.programme_estimate`) of input and output. With a
 separate noise clip the clip itself is run through the same sections (from
 rest, without dither) and every non-silent segment of the file is programme.
 """
@@ -49,9 +49,13 @@ class NoiseReference:
     clip : str, optional
         A separate noise-only recording (same rate and channel count).
     margin_db : float
-        Crossover margin, dB (see :func:`audition.spectrum.crossover`).
+        Crossover margin, dB (see :func:`audition.survey.programme.crossover`): the programme must stand
+        this far above the hiss for a band to count as heard.
     treble_from_hz : float
-        Lower edge of the treble band whose loss is counted, Hz.
+        Lowest band whose cut counts as treble loss, Hz.
+    listening_level_db : float
+        The SPL at which a full-scale sine would play (default 100 dB SPL, common practice for
+        calibrated monitoring, not a standard): what is heard depends on it.
 
     With neither ``spans`` nor ``clip`` the noise reference is found
     automatically from the quietest frames.
@@ -61,10 +65,12 @@ class NoiseReference:
     clip: str | None = None
     margin_db: float = 0.0
     treble_from_hz: float = 2000.0
+    listening_level_db: float = 100.0
 
     def to_dict(self) -> dict:
         return {"spans": None if self.spans is None else [list(s) for s in self.spans], "clip": self.clip,
-                "margin_db": float(self.margin_db), "treble_from_hz": float(self.treble_from_hz)}
+                "margin_db": float(self.margin_db), "treble_from_hz": float(self.treble_from_hz),
+                "listening_level_db": float(self.listening_level_db)}
 
 
 @dataclass(frozen=True)
@@ -73,10 +79,11 @@ class PlanSettings:
 
     budget_db: float = 1.0
     weighting: str = "itu468"
-    orders: tuple[int, ...] = (2, 4)
+    orders: tuple[int, ...] = (1, 2, 3, 4, 5, 6, 7, 8)
     method: str = "bilinear"
     max_peak_db: float = 1.5
     highpass_hz: float | None = None
+    objective: str = "heard"
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -96,7 +103,7 @@ def survey_path(path, noise: NoiseReference | None = None, *, threads: bool = Tr
 
     Returns
     -------
-    audition.spectrum.Survey
+    audition.survey.onepass.Survey
 
     Raises
     ------
@@ -104,22 +111,23 @@ def survey_path(path, noise: NoiseReference | None = None, *, threads: bool = Tr
         An unreadable file, a bad span, a noise clip of another rate or channel count,
         no quiet frames for the automatic search, digital silence.
     """
-    from audition import audiofile, spectrum
+    from audition.io import reader
+    from audition.survey.onepass import survey_blocks
 
     noise = noise or NoiseReference()
-    inf = audiofile.info(path)
+    inf = reader.info(path)
     noise_blocks = noise_rate = None
     if noise.clip:
-        ninf = audiofile.info(noise.clip)
+        ninf = reader.info(noise.clip)
         if ninf.channels != inf.channels:
             raise BadParameter(f"{noise.clip}: the noise clip has {ninf.channels} channel(s), "
                                f"{path} has {inf.channels}; they must agree")
-        noise_blocks, noise_rate = audiofile.blocks(noise.clip), ninf.rate_hz
-    return spectrum.survey_blocks(audiofile.blocks(path, ahead=threads), inf.rate_hz, inf.channels, frames=inf.frames,
-                                 noise_spans=None if noise.spans is None else list(noise.spans),
-                                 noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
-                                 margin_db=noise.margin_db, name=str(path),
-                                 noise_name=str(noise.clip) if noise.clip else None)
+        noise_blocks, noise_rate = reader.blocks(noise.clip), ninf.rate_hz
+    return survey_blocks(reader.blocks(path, ahead=threads), inf.rate_hz, inf.channels, frames=inf.frames,
+                         noise_spans=None if noise.spans is None else list(noise.spans),
+                         noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
+                         margin_db=noise.margin_db, name=str(path),
+                         noise_name=str(noise.clip) if noise.clip else None)
 
 
 def plan_survey(survey, noise: NoiseReference | None = None, settings: PlanSettings | None = None):
@@ -128,11 +136,41 @@ def plan_survey(survey, noise: NoiseReference | None = None, settings: PlanSetti
 
     noise = noise or NoiseReference()
     settings = settings or PlanSettings()
-    return plan.plan(survey.freqs_hz, survey.programme_psd, survey.noise_psd, survey.rate_hz,
-                     budget_db=settings.budget_db, weighting=settings.weighting, orders=tuple(settings.orders),
-                     method=settings.method, treble_from_hz=noise.treble_from_hz, crossover_hz=survey.crossover_hz,
+    return plan.plan(survey.hearing_bands, budget_db=settings.budget_db, objective=settings.objective,
+                     weighting=settings.weighting, orders=tuple(settings.orders), method=settings.method,
+                     treble_from_hz=noise.treble_from_hz, margin_db=noise.margin_db,
+                     listening_level_db=noise.listening_level_db, crossover_hz=survey.crossover_hz,
                      highpass_hz=settings.highpass_hz, max_peak_db=settings.max_peak_db,
                      extra_warnings=plan.noise_warnings(survey))
+
+
+def predict(survey, design, noise: NoiseReference | None = None) -> dict:
+    """What ``design`` is predicted to do to the surveyed file: the heard figures and the weighted SNR.
+
+    The keys: ``treble_loss_db`` and ``treble_loss_hz`` (the largest cut where the programme is
+    heard, :mod:`audition.plan.audible`), ``hiss_heard`` (``before_sone``, ``after_sone``,
+    ``reduction_pct``, per-band audible shares), ``snr_gain_db`` per weighting, and the
+    weighted hiss levels and the response at 10 and 15 kHz of :func:`audition.measure.predict`
+    (whose share-of-treble-power figure is kept as ``treble_power_share_lost_db``).
+    """
+    from audition import measure
+    from audition.plan.choose import judge
+
+    noise = noise or NoiseReference()
+    old = measure.predict(survey.freqs_hz, survey.programme_psd, survey.noise_psd, design,
+                          treble_from_hz=noise.treble_from_hz).to_dict()
+    c = judge(survey.hearing_bands, design, listening_level_db=noise.listening_level_db, margin_db=noise.margin_db,
+              treble_from_hz=noise.treble_from_hz)
+    out = c.predicted()
+    out["hiss_heard"] = c.hiss_heard.to_dict()
+    out["snr_gain_db"] = old["snr_gain_db"]
+    out["treble_power_share_lost_db"] = old.pop("treble_loss_db")
+    for key in ("treble_from_hz", "response_db", "noise_before_dbfs", "noise_after_dbfs", "noise_reduction_db"):
+        out[key] = old[key]
+    out["listening_level_db"] = noise.listening_level_db
+    out["band_cut_db"] = {"bands_hz": [float(f) for f in survey.hearing_bands.centres_hz],
+                          "programme": [float(x) for x in c.cut_db], "hiss": [float(x) for x in c.noise_cut_db]}
+    return out
 
 
 def plan_path(path, noise: NoiseReference | None = None, settings: PlanSettings | None = None):
@@ -147,7 +185,7 @@ def plan_path(path, noise: NoiseReference | None = None, settings: PlanSettings 
 
 
 def spec_settings(spec) -> dict:
-    """The fields of a :class:`~audition.presets.FilterSpec` that decide the filter (not where it came from)."""
+    """The fields of a :class:`~audition.plan.presets.FilterSpec` that decide the filter (not where it came from)."""
     return {"name": spec.name, "f0_hz": spec.f0_hz, "q": spec.q, "order": int(spec.order),
             "alignment": spec.alignment, "sections": [[float(f0), q] for f0, q in spec.sections],
             "method": spec.method, "gain_db": float(spec.gain_db), "highpass_hz": spec.highpass_hz}
@@ -183,7 +221,7 @@ class _PairedWelch:
 
     def __init__(self, seg, spans, rate_hz):
         self.seg = seg
-        from audition.spectrum import span_frames
+        from audition.survey.segments import span_frames
 
         self.spans = span_frames(spans or (), rate_hz)
         n = len(seg.freqs_hz)
@@ -193,7 +231,8 @@ class _PairedWelch:
         self.n_prog = 0
 
     def classify(self, first, count, p_in):
-        from audition.spectrum import SILENT_POWER, classify_segments
+        from audition.survey.levels import SILENT_POWER
+        from audition.survey.segments import classify_segments
 
         where = classify_segments(first, count, self.seg, self.spans)  # 1 inside a span, 2 partly, 0 outside
         live = p_in.sum(axis=1) * self.seg.df_hz > SILENT_POWER
@@ -208,7 +247,9 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
 
     Returns
     -------
-    audition.measure.Measured
+    dict
+        :meth:`audition.measure.Measured.to_dict`, with the treble loss and the hiss heard in the
+        planner's terms (:func:`_heard_measured`).
 
     Raises
     ------
@@ -216,9 +257,11 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
         The output is not the same length or channel count as the input, or the
         noise reference holds no whole segment.
     """
-    from audition import audiofile, measure, spectrum
+    from audition import measure
     from audition.errors import BadInputFile
-    from audition.spectrum import Segmenter
+    from audition.io import reader
+    from audition.survey.programme import programme_estimate
+    from audition.survey.segments import Segmenter
 
     noise = noise or NoiseReference()
     rate, ch = survey.rate_hz, survey.channels
@@ -226,11 +269,11 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
     use_clip = bool(noise.clip)
     acc_in = _PairedWelch(seg_in, () if use_clip else survey.spans, rate)
     acc_out = _PairedWelch(seg_out, () if use_clip else survey.spans, rate)
-    oinf = audiofile.info(out_path)
+    oinf = reader.info(out_path)
     if oinf.channels != ch or oinf.frames != survey.frames:
         raise BadInputFile(f"{out_path}: {oinf.frames} frames of {oinf.channels} channel(s); the input has "
                            f"{survey.frames} of {ch}, so the render cannot be measured against it")
-    for xb, yb in zip(audiofile.blocks(in_path, ahead=threads), audiofile.blocks(out_path, ahead=threads)):
+    for xb, yb in zip(reader.blocks(in_path, ahead=threads), reader.blocks(out_path, ahead=threads)):
         if len(xb) != len(yb):
             raise BadInputFile(f"{out_path}: its blocks do not line up with the input's; cannot measure the render")
         got_in = [(i0, p.copy()) for i0, p in seg_in.periodograms(xb)]
@@ -256,21 +299,45 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
         raise BadInputFile(f"{in_path}: no programme outside the noise reference to measure on")
     # The same programme estimate as the survey's (band-averaged before the floor), so a floor bias in
     # hiss-dominated bins of the input cannot pass for treble the render took away.
-    prog_in = spectrum.programme_estimate(survey.freqs_hz, acc_in.prog / acc_in.n_prog, noise_in)
-    prog_out = spectrum.programme_estimate(survey.freqs_hz, acc_out.prog / acc_out.n_prog, noise_out)
-    return measure.measure(survey.freqs_hz, noise_in, noise_out, prog_in, prog_out,
-                           treble_from_hz=noise.treble_from_hz)
+    prog_in = programme_estimate(survey.freqs_hz, acc_in.prog / acc_in.n_prog, noise_in)
+    prog_out = programme_estimate(survey.freqs_hz, acc_out.prog / acc_out.n_prog, noise_out)
+    m = measure.measure(survey.freqs_hz, noise_in, noise_out, prog_in, prog_out,
+                        treble_from_hz=noise.treble_from_hz).to_dict()
+    return _heard_measured(m, survey, noise, prog_in, prog_out, noise_in, noise_out)
+
+
+def _heard_measured(m: dict, survey, noise, prog_in, prog_out, noise_in, noise_out) -> dict:
+    """The measured figures in the planner's terms: the largest cut where the programme is heard, from the
+    input's and output's programme estimates band by band, and the hiss heard with the measured band gains
+    (programme and hiss, output over input) applied to the input's frames. The share-of-treble-power figure
+    of :func:`audition.measure.measure` is kept as ``treble_power_share_lost_db``."""
+    from audition.plan.audible import audible_bands, hiss_heard, treble_loss
+    from audition.survey.bands import band_levels
+
+    b = survey.hearing_bands
+    _, bp = band_levels(survey.freqs_hz, np.stack([prog_in, prog_out, noise_in, noise_out]), 3)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        g_p = np.where(bp[0] > 0, bp[1] / bp[0], 1.0)
+        g_n = np.where(bp[2] > 0, bp[3] / bp[2], 1.0)
+    aud = audible_bands(b, noise.listening_level_db, noise.margin_db, noise.treble_from_hz)
+    loss, at = treble_loss(g_p, aud, b.centres_hz)
+    m["treble_power_share_lost_db"] = m.pop("treble_loss_db")
+    m["treble_loss_db"] = float(loss)
+    m["treble_loss_hz"] = None if not np.isfinite(at) or loss <= 0 else float(at)
+    h = hiss_heard(b, g_p, g_n, noise.listening_level_db)
+    m["hiss_heard"] = {"before_sone": h.before_sone, "after_sone": h.after_sone, "reduction_pct": h.reduction_pct}
+    return m
 
 
 def _clip_psds(clip_path, design, rate, channels, nperseg):
     """Welch PSDs of a noise clip before and after the design's sections (from rest, no dither)."""
-    from audition import audiofile
-    from audition.render import StreamingFilter
-    from audition.spectrum import WelchPSD
+    from audition.io import reader
+    from audition.streamfilter import StreamingFilter
+    from audition.survey.welch import WelchPSD
 
     before, after = WelchPSD(rate, channels, nperseg), WelchPSD(rate, channels, nperseg)
     filt = StreamingFilter(design.sos, channels)
-    for x in audiofile.blocks(clip_path):
+    for x in reader.blocks(clip_path):
         before.feed(x)
         after.feed(filt(x))
     return before.psd, after.psd
@@ -350,7 +417,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     ----------
     in_path, out_path : str or os.PathLike
         The input is only read; the output gets a sidecar ``OUT.json``.
-    spec : audition.presets.FilterSpec, optional
+    spec : audition.plan.presets.FilterSpec, optional
         The filter (from a plan or preset file, or explicit options).
     auto : PlanSettings, optional
         Plan the filter from the survey instead. Exactly one of ``spec`` and ``auto``.
@@ -383,23 +450,26 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     AuditionError
         BadParameter, BadInputFile or OutputRefused; nothing is left behind.
     """
-    from audition import audiofile, measure, presets
+    from audition import measure
+    from audition.io import reader, writer
+    from audition.io.sidecar import sidecar_path, write_sidecar
+    from audition.plan import presets
     from audition.render import render_file
 
     if (spec is None) == (auto is None):
         raise BadParameter("give exactly one filter source: a filter (spec) or automatic planning (auto)")
     in_path, out_path = os.fspath(in_path), os.fspath(out_path)
-    side_path = audiofile.sidecar_path(out_path)
+    side_path = sidecar_path(out_path)
     # Refuse every output before reading anything: a job fails early or not at all.
-    audiofile.check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
-    audiofile.check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
+    writer.check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
+    writer.check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
     if report_path is not None:
         report_path = os.fspath(report_path)
         for other in (out_path, side_path):
-            if audiofile.same_file(report_path, other) or os.path.abspath(report_path) == os.path.abspath(other):
+            if writer.same_file(report_path, other) or os.path.abspath(report_path) == os.path.abspath(other):
                 raise OutputRefused(f"{report_path!r}: the report would overwrite {other!r}; name another file")
-        audiofile.check_output_path(report_path, inputs=[in_path], overwrite=overwrite)
-    info = audiofile.info(in_path)
+        writer.check_output_path(report_path, inputs=[in_path], overwrite=overwrite)
+    info = reader.info(in_path)
     if noise is None and (auto is not None or report_path is not None):
         noise = NoiseReference()
     settings = job_settings(spec=spec, auto=auto, noise=noise, subtype=subtype, dither=dither, seed=seed)
@@ -410,8 +480,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     if auto is not None:
         pl = plan_survey(survey, noise, auto)
         if pl.choice is None:
-            raise BadParameter(f"{in_path}: no filter keeps the treble loss within --budget-db "
-                               f"{auto.budget_db:g} dB; raise the budget or leave the treble alone")
+            return _no_filter(in_path, pl, survey, settings, report_path, provenance)
         d = pl.choice.design
         filter_source = {"kind": "auto"}
     else:
@@ -421,8 +490,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     record = {"settings": settings, "filter_source": filter_source, **(provenance or {})}
     predicted = None
     if survey is not None:
-        predicted = measure.predict(survey.freqs_hz, survey.programme_psd, survey.noise_psd, d,
-                                    treble_from_hz=noise.treble_from_hz).to_dict()
+        predicted = predict(survey, d, noise)
         record["survey"] = survey.to_dict()
         record["predicted"] = predicted
     if pl is not None:
@@ -435,12 +503,12 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         out = render_summary(r, d)
         out.update(record)
         if survey is not None:
-            measured = measure_render(in_path, out_path, d, survey, noise, threads=threads).to_dict()
+            measured = measure_render(in_path, out_path, d, survey, noise, threads=threads)
             out["measured"] = jsonable(measured)
             out["warnings"] = list(pl.warnings) if pl is not None else _survey_warnings(survey)
             sidecar = _read_json(side_path)
             sidecar["measured"] = out["measured"]
-            audiofile.write_sidecar(side_path, sidecar)
+            write_sidecar(side_path, sidecar)
         if report_path is not None:
             from audition import report
 
@@ -453,12 +521,25 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     return jsonable(out)
 
 
+def _no_filter(in_path, pl, survey, settings, report_path, provenance) -> dict:
+    """The job's result when the plan says no filter: nothing rendered, the reason given (and reported)."""
+    out = {"input": os.fspath(in_path), "output": None, "sidecar": None, "choice": None,
+           "no_filter_reason": pl.no_filter_reason, "settings": settings, "survey": survey.to_dict(),
+           "plan": compact_plan(pl), "warnings": list(pl.warnings), **(provenance or {})}
+    if report_path is not None:
+        from audition import report
+
+        report.write(report_path, report.render_page(out, None, survey, pl, None))
+        out["report"] = report_path
+    return jsonable(out)
+
+
 def compact_plan(pl) -> dict:
     """The plan for a sidecar: the choice in full, the trade-off without section coefficients."""
     def brief(c):
         d = c.design
-        return {"f0_hz": d.f0_hz, "q": d.q, "order": d.order, "alignment": d.alignment,
-                "predicted": {"snr_gain_db": dict(c.snr_gain_db), "treble_loss_db": c.treble_loss_db}}
+        return {"label": c.label, "f0_hz": d.f0_hz, "q": d.q, "order": d.order, "alignment": d.alignment,
+                "ripple_db": d.ripple_db, "predicted": c.predicted()}
 
     full = pl.to_dict()
     full["candidates"] = [brief(c) for c in pl.front]

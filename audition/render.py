@@ -1,6 +1,6 @@
 """The streaming engine: reader -> second-order sections -> dither/quantise -> atomic writer.
 
-A file of any length goes through in blocks of :data:`~audition.audiofile.BLOCK_FRAMES`
+A file of any length goes through in blocks of :data:`~audition.io.formats.BLOCK_FRAMES`
 frames with the filter state carried from block to block (``zi`` in, ``zf``
 out), so the result is that of one pass over the whole signal and the memory
 used does not grow with the length of the file. Reading, filtering and writing
@@ -25,57 +25,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from audition import __version__, audiofile
+from audition import __version__
 from audition.errors import BadInputFile, BadParameter
+from audition.io.formats import BLOCK_FRAMES, OUTPUT_SUBTYPES
+from audition.io.reader import AudioReader
+from audition.io.sidecar import SidecarWriter, sidecar_path, utc_now_iso
+from audition.io.threads import END, get_unless_stopped, put_unless_stopped, read_ahead
+from audition.io.writer import AtomicWriter, check_output_path
+from audition.streamfilter import StreamingFilter
 
 #: Blocks in flight between two threads; bounds the memory (a few MiB).
 QUEUE_DEPTH = 4
-
-
-class StreamingFilter:
-    """A cascade of second-order sections applied block by block with its state carried.
-
-    Parameters
-    ----------
-    sos : array_like, (n_sections, 6)
-        Rows ``[b0, b1, b2, 1, a1, a2]`` as in :func:`scipy.signal.sosfilt`.
-    channels : int
-
-    Attributes
-    ----------
-    zi : np.ndarray, (n_sections, 2, channels)
-        The state before the next block (zeros at the start: the signal is
-        taken to be silent before its first sample).
-
-    Notes
-    -----
-    Each call runs :func:`audition.kernels.sos_filter`: the transposed direct
-    form II recursion of :func:`scipy.signal.sosfilt`, operation for operation,
-    so a call equals ``y, zf = sosfilt(sos, x, axis=0, zi=zi)`` bit for bit and
-    ``zf`` becomes the next ``zi``. The recursion is the same whether or not the
-    signal is cut, so the blocks join without a seam.
-    """
-
-    def __init__(self, sos, channels: int):
-        from audition import kernels
-
-        self._run = kernels.sos_filter
-        self.sos = np.array(sos, dtype=np.float64, ndmin=2, order="C")
-        if self.sos.shape[1] != 6:
-            raise BadParameter(f"sos of shape {self.sos.shape!r}: need (n_sections, 6)")
-        self.channels = int(channels)
-        self.zi = np.zeros((len(self.sos), 2, self.channels))
-
-    def __call__(self, x: np.ndarray) -> np.ndarray:
-        """Filter one float64 (frames, channels) block; returns a new array."""
-        if not len(self.sos):
-            return x
-        x = np.ascontiguousarray(x, dtype=np.float64)
-        if x.ndim != 2 or x.shape[1] != self.channels:
-            raise BadParameter(f"block of shape {x.shape!r} for a {self.channels}-channel filter")
-        y = np.empty_like(x)
-        self._run(x, self.sos, self.zi, y)
-        return y
 
 
 @dataclass(frozen=True)
@@ -151,14 +111,14 @@ def output_subtype(reader_subtype: str, subtype: str | None, fmt: str, in_path: 
     """The subtype to write: the input's unless one is asked for; refuse one audition cannot write."""
     if subtype is not None:
         return subtype
-    if reader_subtype not in audiofile.OUTPUT_SUBTYPES:
+    if reader_subtype not in OUTPUT_SUBTYPES:
         raise BadInputFile(f"{in_path!r}: its {fmt} {reader_subtype} encoding is read but not written by audition; "
-                           f"give --subtype ({', '.join(audiofile.OUTPUT_SUBTYPES)})")
+                           f"give --subtype ({', '.join(OUTPUT_SUBTYPES)})")
     return reader_subtype
 
 
 def render_file(in_path, out_path, design, *, subtype: str | None = None, dither: bool = True, seed: int = 0,
-                overwrite: bool = False, sidecar: bool = True, block_frames: int = audiofile.BLOCK_FRAMES,
+                overwrite: bool = False, sidecar: bool = True, block_frames: int = BLOCK_FRAMES,
                 progress=None, record_extra: dict | None = None, threads: bool = True) -> RenderResult:
     """Filter a sound file into a new one, streaming, atomically, with a sidecar record.
 
@@ -167,7 +127,7 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
     in_path, out_path : str or os.PathLike
         The input is only read; the output must be another file.
     design : audition.design.Design
-        Its ``rate_hz`` must be the file's rate (see :func:`audition.audiofile.info`).
+        Its ``rate_hz`` must be the file's rate (see :func:`audition.io.reader.info`).
     subtype : str, optional
         Output subtype (default: the input's). The container is always the input's.
     dither : bool
@@ -200,21 +160,21 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
     in_path, out_path = os.fspath(in_path), os.fspath(out_path)
     if block_frames < 1:
         raise BadParameter(f"block_frames={block_frames!r}: must be at least 1")
-    side_path = audiofile.sidecar_path(out_path) if sidecar else None
+    side_path = sidecar_path(out_path) if sidecar else None
     # refuse a bad output before opening anything, so the message names the real problem
-    audiofile.check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
+    check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
     if side_path is not None:
-        audiofile.check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
-    with audiofile.AudioReader(in_path, hash_input=True) as reader:
+        check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
+    with AudioReader(in_path, hash_input=True) as reader:
         if abs(design.rate_hz - reader.rate_hz) > 1e-9 * reader.rate_hz:
             raise BadParameter(f"{in_path!r}: the design is for {design.rate_hz:g} Hz but the file is at "
                                f"{reader.rate_hz:g} Hz; design it with the file's rate")
         out_subtype = output_subtype(reader.subtype, subtype, reader.format, in_path)
         side = None
-        writer = audiofile.AtomicWriter(out_path, reader.rate_hz, reader.channels, format=reader.format,
-                                        subtype=out_subtype, overwrite=overwrite, inputs=[in_path],
-                                        metadata=reader.metadata, dither=dither, seed=seed,
-                                        frames_hint=reader.frames)
+        writer = AtomicWriter(out_path, reader.rate_hz, reader.channels, format=reader.format,
+                              subtype=out_subtype, overwrite=overwrite, inputs=[in_path],
+                              metadata=reader.metadata, dither=dither, seed=seed,
+                              frames_hint=reader.frames)
         try:
             filt = StreamingFilter(design.sos, reader.channels)
             # timed from here: scipy's one-off import (about a second) says nothing of the render
@@ -228,7 +188,7 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
                 record = sidecar_record(reader, writer, design, sha, dither=dither, seed=seed)
                 if record_extra:
                     record.update(record_extra)
-                side = audiofile.SidecarWriter(side_path, record)
+                side = SidecarWriter(side_path, record)
             writer.commit()
             if side is not None:
                 side.commit()
@@ -262,7 +222,7 @@ def sidecar_record(reader, writer, design, sha256: str, *, dither: bool, seed: i
     info = reader.info
     return {
         "audition_version": __version__,
-        "processed_utc": audiofile.utc_now_iso(),
+        "processed_utc": utc_now_iso(),
         "input": {
             "path": os.path.abspath(info.path), "size_bytes": info.size_bytes, "sha256": sha256,
             "format": info.format, "subtype": info.subtype, "rate_hz": info.rate_hz, "channels": info.channels,
@@ -313,8 +273,8 @@ def _run_threaded(reader, filt, writer, block_frames, progress):
     def write_loop():
         try:
             while True:
-                item = audiofile.get_unless_stopped(q_out, stop)
-                if item is audiofile.END:
+                item = get_unless_stopped(q_out, stop)
+                if item is END:
                     return
                 writer.write_quantised(item)
         except BaseException as exc:
@@ -325,14 +285,14 @@ def _run_threaded(reader, filt, writer, block_frames, progress):
     write_thread.start()
     done = 0
     try:
-        with contextlib.closing(audiofile.read_ahead(reader, block_frames, QUEUE_DEPTH)) as blocks:
+        with contextlib.closing(read_ahead(reader, block_frames, QUEUE_DEPTH)) as blocks:
             for x in blocks:
-                if not audiofile.put_unless_stopped(q_out, writer.quantise(filt(x)), stop):
+                if not put_unless_stopped(q_out, writer.quantise(filt(x)), stop):
                     break
                 done += len(x)
                 if progress is not None:
                     progress(done, reader.frames)
-        audiofile.put_unless_stopped(q_out, audiofile.END, stop)
+        put_unless_stopped(q_out, END, stop)
         write_thread.join()
     finally:
         stop.set()

@@ -22,6 +22,10 @@ code { font-size: 0.85rem; word-break: break-all; }
 """
 
 
+def _band(f_hz) -> str:
+    return "—" if not f_hz else f"{f_hz / 1000:.1f} kHz"
+
+
 def _fmt(v, unit="") -> str:
     if v is None:
         return "—"
@@ -57,8 +61,13 @@ def figures_table(predicted: dict | None, measured: dict | None) -> str:
     for key, what in (("snr_gain_db", "SNR gain"), ("noise_reduction_db", "noise reduction")):
         for name, label in WEIGHTING_LABELS.items():
             rows.append([f"{what}, {label} (dB)", _fmt(pr.get(key, {}).get(name)), _fmt(me.get(key, {}).get(name))])
-    rows.append([f"treble loss above {pr.get('treble_from_hz') or me.get('treble_from_hz') or 2000:,.0f} Hz (dB)",
-                 _fmt(pr.get("treble_loss_db")), _fmt(me.get("treble_loss_db"))])
+    rows.insert(0, ["treble loss: largest cut where the programme is heard (dB)", _fmt(pr.get("treble_loss_db")),
+                    _fmt(me.get("treble_loss_db"))])
+    rows.insert(1, ["band of that cut", _band(pr.get("treble_loss_hz")), _band(me.get("treble_loss_hz"))])
+    ph, mh = pr.get("hiss_heard") or {}, me.get("hiss_heard") or {}
+    rows.insert(2, ["hiss heard, before → after (sone, ISO 532-1)",
+                    f"{_fmt(ph.get('before_sone'))} → {_fmt(ph.get('after_sone'))}" if ph else "—",
+                    f"{_fmt(mh.get('before_sone'))} → {_fmt(mh.get('after_sone'))}" if mh else "—"])
     return table(["figure", "predicted (from the input's spectra)", "measured (input against output)"], rows)
 
 
@@ -88,6 +97,8 @@ def _code(v) -> str:
 
 
 def _filter_rows(design) -> str:
+    if design is None:
+        return "<p><b>No filter was applied and no output was written.</b></p>"
     fig = design.figures()
     rows = [["cutoff f0", f"{design.f0_hz:,.0f} Hz"],
             ["order", _fmt(design.order)],
@@ -112,7 +123,7 @@ def render_page(job: dict, sidecar: dict, survey, plan, design) -> str:
         What the job returned (render summary, predicted, measured, plan, warnings).
     sidecar : dict
         The sidecar as written, for the provenance.
-    survey : audition.spectrum.Survey or None
+    survey : audition.survey.onepass.Survey or None
     plan : audition.plan.Plan or None
     design : audition.design.Design
         The filter that was rendered.
@@ -122,10 +133,15 @@ def render_page(job: dict, sidecar: dict, survey, plan, design) -> str:
     pictures = dict(report_figures(survey, plan, design, title=os.path.basename(job["input"]),
                                    treble_from_hz=(job.get("predicted") or {}).get("treble_from_hz")))
     sections = []
-    intro = (f"<p><b>{html.escape(job['input'])}</b> was filtered into <b>{html.escape(job['output'])}</b> "
-             f"({html.escape(job['format'])} {html.escape(job['subtype'])}, {job['rate']:g} Hz, "
-             f"{job['channels']} channel(s), {job['duration_seconds']:.2f} s). The input was only read; keep the "
-             "unprocessed transfer and this page with it.</p>")
+    if design is None:
+        intro = (f"<p><b>{html.escape(job['input'])}</b>: <b>no filter</b>: "
+                 f"{html.escape(job.get('no_filter_reason') or '')}. Nothing was rendered; the input was only "
+                 "read.</p>")
+    else:
+        intro = (f"<p><b>{html.escape(job['input'])}</b> was filtered into <b>{html.escape(job['output'])}</b> "
+                 f"({html.escape(job['format'])} {html.escape(job['subtype'])}, {job['rate']:g} Hz, "
+                 f"{job['channels']} channel(s), {job['duration_seconds']:.2f} s). The input was only read; keep "
+                 "the unprocessed transfer and this page with it.</p>")
     warnings = job.get("warnings") or []
     if warnings:
         intro += "".join(f"<p class='warn'>{html.escape(w)}</p>" for w in warnings)
@@ -160,17 +176,25 @@ def render_page(job: dict, sidecar: dict, survey, plan, design) -> str:
         body += image(pictures["response"], "magnitude response of the chosen filter")
     sections.append(("The filter" + (" chosen" if plan is not None else ""), body))
     if plan is not None:
-        body = image(pictures["tradeoff"], "trade-off between SNR gain and treble loss") if "tradeoff" in pictures \
+        body = image(pictures["tradeoff"], "trade-off between treble loss and hiss heard") if "tradeoff" in pictures \
             else ""
         w = plan.weighting
         rows = []
-        for label, cand in ([("choice", plan.choice)] if plan.choice else []) + \
-                [("alternative", a) for a in plan.alternatives]:
-            rows.append([label, html.escape(cand.label), f"{cand.snr_gain_db[w]:.2f}", f"{cand.treble_loss_db:.2f}"])
-        body += table(["", "design", f"SNR gain, {w} (dB)", "treble loss (dB)"], rows)
-        body += (f"<p class='note'>{plan.searched} candidates searched; the treble-loss budget was "
-                 f"{plan.budget_db:g} dB. Treble loss counts only what the filter cuts, not what a resonant "
-                 "peak lifts.</p>")
+        cands = ([("choice", plan.choice)] if plan.choice else []) + \
+            ([("best compromise (not chosen)", plan.best_compromise)] if plan.best_compromise else []) + \
+            [("alternative", a) for a in plan.alternatives]
+        for label, cand in cands:
+            snr = cand.snr_gain_db.get(w)
+            rows.append([label, html.escape(cand.label), f"{cand.treble_loss_db:.2f}", _band(cand.treble_loss_hz),
+                         f"{cand.reduction_pct:.0f} %", "—" if snr is None else f"{snr:.2f}"])
+        body += table(["", "design", "treble loss (dB)", "in band", "hiss heard taken away",
+                       f"SNR gain, {WEIGHTING_LABELS.get(w, w)} (dB)"], rows)
+        body += (f"<p class='note'>{plan.searched:,} candidates searched; the treble-loss budget was "
+                 f"{plan.budget_db:g} dB, listening at {plan.listening_level_db:g} dB SPL for a full-scale sine. "
+                 "Treble loss is the largest cut the filter makes in a one-third-octave band where the programme "
+                 "is heard (above the hiss and the threshold of hearing); a resonant lift does not pay for it. "
+                 "The hiss heard is the ISO 532-1 loudness the hiss adds to the programme, averaged over every "
+                 "frame.</p>")
         sections.append(("Trade-off", body))
     if job.get("predicted") or job.get("measured"):
         body = figures_table(job.get("predicted"), job.get("measured"))
@@ -178,13 +202,14 @@ def render_page(job: dict, sidecar: dict, survey, plan, design) -> str:
                  "and programme segments of the input and the rendered output (programme = outside the noise "
                  "reference, noise subtracted). The measured output includes its dither.</p>")
         sections.append(("Predicted and measured", body))
-    sections.append(("Provenance (from the sidecar " + os.path.basename(job.get("sidecar") or "") + ")",
-                     provenance(sidecar)))
+    if sidecar is not None:
+        sections.append(("Provenance (from the sidecar " + os.path.basename(job.get("sidecar") or "") + ")",
+                         provenance(sidecar)))
     return build(f"audition: hiss filter report for {os.path.basename(job['input'])}", sections)
 
 
 def write(path, text: str) -> None:
     """Write the page (or any text) atomically: a temporary file in the target folder, then a rename."""
-    from audition import audiofile
+    from audition.io import sidecar
 
-    audiofile.write_text(path, text, "report")
+    sidecar.write_text(path, text, "report")

@@ -48,13 +48,13 @@ def make_clip(path: str, seconds: float, seed: int) -> None:
     import numpy as np
 
     sys.path.insert(0, ROOT)
-    from audition import audiofile
+    from audition.io import writer
 
     frames = int(seconds * RATE)
     rng = np.random.default_rng(seed)
     t = np.arange(frames) / RATE
     x = 0.2 * rng.standard_normal((frames, 2)) + 0.3 * np.sin(2 * np.pi * np.outer(t, [220.0 + seed, 330.0]))
-    audiofile.write_clip(path, x, RATE, subtype="PCM_24", dither=False)
+    writer.write_clip(path, x, RATE, subtype="PCM_24", dither=False)
 
 
 def timed(cmd) -> float:

@@ -36,11 +36,12 @@ RATE = 48000
 
 def make_file(path: str, minutes: float, seed: int = 7) -> None:
     sys.path.insert(0, ROOT)
-    from audition import audiofile, synth
+    from audition import synth
+    from audition.io import writer
 
     frames = int(minutes * 60 * RATE)
-    with audiofile.AtomicWriter(path, RATE, 2, format="WAV", subtype="PCM_24", dither=True, seed=seed,
-                                frames_hint=frames) as w:
+    with writer.AtomicWriter(path, RATE, 2, format="WAV", subtype="PCM_24", dither=True, seed=seed,
+                             frames_hint=frames) as w:
         for chunk in synth.synth_blocks(seconds=minutes * 60, rate_hz=RATE, channels=2, hiss_dbfs=-50.0,
                                         hiss="tape", lead_in_seconds=2.0, seed=seed):
             w.write(chunk.mix)

@@ -65,13 +65,13 @@ def make_file(path: str, minutes: float, seed: int = 1) -> None:
     import numpy as np
 
     sys.path.insert(0, ROOT)
-    from audition import audiofile
+    from audition.io import formats, writer
 
     frames = int(minutes * 60 * RATE)
     rng = np.random.default_rng(seed)
-    block = audiofile.BLOCK_FRAMES * 4
-    with audiofile.AtomicWriter(path, RATE, 2, format="WAV", subtype="PCM_24", dither=False,
-                                frames_hint=frames) as w:
+    block = formats.BLOCK_FRAMES * 4
+    with writer.AtomicWriter(path, RATE, 2, format="WAV", subtype="PCM_24", dither=False,
+                             frames_hint=frames) as w:
         for start in range(0, frames, block):
             n = min(block, frames - start)
             t = (start + np.arange(n)) / RATE

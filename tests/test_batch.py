@@ -27,9 +27,10 @@ import pytest
 import scipy.signal
 import soundfile as sf
 
-from audition import audiofile, batch, pipeline, synth
+from audition import batch, pipeline, synth
 from audition.cli import main
 from audition.errors import BadParameter
+from audition.io import reader, sidecar, writer
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 _real_render_job = pipeline.render_job
@@ -42,7 +43,7 @@ def make_clip(path, seconds=1.0, channels=1, seed=1, subtype="FLOAT", hiss="whit
     clip = synth.synthesise(seconds=seconds, rate_hz=rate, channels=channels, hiss=hiss, hiss_dbfs=-40.0,
                             lead_in_seconds=0.5, seed=seed)
     os.makedirs(os.path.dirname(str(path)), exist_ok=True)
-    audiofile.write_clip(path, clip.mix, rate, subtype=subtype, seed=seed)
+    writer.write_clip(path, clip.mix, rate, subtype=subtype, seed=seed)
     return clip.mix
 
 
@@ -96,13 +97,13 @@ def test_bad_files_are_reported_and_the_good_outputs_are_right(tmp_path, good_an
     assert "\r" not in captured.err  # no progress bar off a terminal
     # the good outputs keep their places and are the reference filter's output (float: no dither)
     for rel in ("a.wav", os.path.join("tape2", "b.wav")):
-        x, _ = audiofile.read_clip(good_and_bad / rel)
-        y, rate = audiofile.read_clip(out / rel)
+        x, _ = reader.read_clip(good_and_bad / rel)
+        y, rate = reader.read_clip(out / rel)
         assert rate == RATE and y.shape == x.shape
         # FLOAT output stores float32: agree with scipy within float32 rounding
         np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)
         side = json.loads((out / (rel + ".json")).read_text())
-        assert side["input"]["sha256"] == audiofile.sha256_file(good_and_bad / rel)
+        assert side["input"]["sha256"] == reader.sha256_file(good_and_bad / rel)
     assert sorted(files_under(out)) == sorted(["a.wav", "a.wav.json", os.path.join("tape2", "b.wav"),
                                                os.path.join("tape2", "b.wav.json"), "batch-report.csv",
                                                "batch-report.json"])
@@ -397,7 +398,7 @@ def test_killed_batch_resumes_to_the_uninterrupted_result(tmp_path, sig):
 def test_spawned_workers_give_the_same_bytes_as_forked_ones(tmp_path):
     import multiprocessing
 
-    from audition import presets
+    from audition.plan import presets
 
     src = tmp_path / "src"
     for i in range(2):
@@ -422,7 +423,7 @@ def _crashing_render_job(in_path, out_path, **kw):
 def test_a_worker_process_that_dies_fails_only_its_clip(tmp_path, monkeypatch):
     import multiprocessing
 
-    from audition import presets
+    from audition.plan import presets
 
     src = tmp_path / "src"
     for i, name in enumerate(("a.wav", "b.wav", "crash.wav", "d.wav", "e.wav")):
@@ -435,8 +436,8 @@ def test_a_worker_process_that_dies_fails_only_its_clip(tmp_path, monkeypatch):
     assert "worker process died" in res.rows[2]["reason"]
     assert {s for s, _ in status.values()} == {"done"}, status
     for name in status:
-        x, _ = audiofile.read_clip(src / name)
-        y, _ = audiofile.read_clip(tmp_path / "out" / name)
+        x, _ = reader.read_clip(src / name)
+        y, _ = reader.read_clip(tmp_path / "out" / name)
         np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)  # scipy.signal.butter, as above
 
 
@@ -456,7 +457,7 @@ def test_a_clip_finished_by_a_worker_killed_with_its_pool_is_kept(tmp_path, monk
     # worker's render was complete; its second attempt found the output there and refused it.
     import multiprocessing
 
-    from audition import presets
+    from audition.plan import presets
 
     src = tmp_path / "src"
     for i, name in enumerate(("b.wav", "crash.wav")):
@@ -467,8 +468,8 @@ def test_a_clip_finished_by_a_worker_killed_with_its_pool_is_kept(tmp_path, monk
     status = {os.path.basename(r["input"]): (r["status"], r["reason"]) for r in res.rows}
     assert status["b.wav"] == ("done", ""), status
     assert status["crash.wav"][0] == "failed"
-    x, _ = audiofile.read_clip(src / "b.wav")
-    y, _ = audiofile.read_clip(tmp_path / "out" / "b.wav")
+    x, _ = reader.read_clip(src / "b.wav")
+    y, _ = reader.read_clip(tmp_path / "out" / "b.wav")
     np.testing.assert_allclose(y, butter_reference(x), rtol=0, atol=2e-7)  # scipy.signal.butter, as above
 
 
@@ -477,7 +478,7 @@ def test_a_second_attempt_of_a_run_keeps_what_its_first_finished_and_redoes_the_
     # re-runs a lost worker's tasks). A second attempt of the same run must not refuse its own work.
     import dataclasses
 
-    from audition import presets
+    from audition.plan import presets
 
     src = tmp_path / "src"
     make_clip(src / "a.wav", seconds=1.0, seed=90)
@@ -490,11 +491,11 @@ def test_a_second_attempt_of_a_run_keeps_what_its_first_finished_and_redoes_the_
     kept = open(jobs[0].output, "rb").read()
     before = os.stat(jobs[0].output).st_mtime_ns
     # b's first attempt was killed between its render and its measurement
-    side_b = audiofile.sidecar_path(jobs[1].output)
+    side_b = sidecar.sidecar_path(jobs[1].output)
     rec = json.load(open(side_b))
     assert rec["batch_run"] == "run-1" and rec["measured"]
     measured = rec.pop("measured")
-    audiofile.write_sidecar(side_b, rec)
+    sidecar.write_sidecar(side_b, rec)
     again = [batch.run_job(j) for j in run1]
     assert [(r["status"], r["reason"]) for r in again] == [("done", ""), ("done", "")]
     assert os.stat(jobs[0].output).st_mtime_ns == before and open(jobs[0].output, "rb").read() == kept

@@ -6,7 +6,7 @@ import os
 
 import numpy as np
 import pytest
-from scipy import integrate, signal
+from scipy import integrate, optimize, signal
 
 from audition import design
 from audition.cli import main
@@ -310,7 +310,10 @@ def test_from_dict_round_trip():
     ({"f0_hz": 1000.0, "rate_hz": 48000, "q": -0.5}, "q=-0.5: Q must satisfy 0 < Q <= 100"),
     ({"f0_hz": 1000.0, "rate_hz": 48000, "q": 0.0}, "Q must satisfy 0 < Q"),
     ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 0}, "order must be an integer from 1 to 12"),
-    ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 4, "alignment": "chebyshev"}, "allowed are butterworth"),
+    ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 4, "alignment": "elliptic"}, "allowed are butterworth"),
+    ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 4, "alignment": "chebyshev"}, "needs its passband ripple"),
+    ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 4, "alignment": "bessel", "ripple_db": 0.5}, "Chebyshev"),
+    ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 4, "alignment": "chebyshev", "ripple_db": 9.0}, "0 < ripple <= 3"),
     ({"f0_hz": 1000.0, "rate_hz": 6000}, "at least 8000 Hz"),
     ({"f0_hz": 1000.0, "rate_hz": 48000, "order": 3, "alignment": "linkwitz-riley"}, "even order"),
 ])
@@ -369,7 +372,8 @@ def test_cli_bad_input_one_line_exit_2(argv, needle, capsys):
 
 @pytest.mark.parametrize("argv,needle", [
     (["--f0", "1000", "--order", "4", "--alignment", "elliptic"],
-     "argument --alignment: invalid choice: 'elliptic' (choose from 'butterworth', 'bessel', 'linkwitz-riley')"),
+     "argument --alignment: invalid choice: 'elliptic' (choose from 'butterworth', 'bessel', 'linkwitz-riley', "
+     "'chebyshev')"),
     (["--f0", "1000", "--order", "four"], "argument --order: invalid int value: 'four'"),
     (["--f0", "1000", "--method", "impulse"], "argument --method: invalid choice: 'impulse'"),
 ])
@@ -382,3 +386,66 @@ def test_cli_unknown_names_one_line_exit_2(argv, needle, capsys):
     err = capsys.readouterr().err
     assert needle in err
     assert err.count("\n") == 1 and err.startswith("audition response: error:")
+
+
+# --- Alignments prewarped as a whole: the stated f0 holds once digitised --------------------------------------
+
+
+def _digital_crossing_hz(d, level_db):
+    """Where the digital magnitude (relative to DC) first falls through ``level_db``, from scipy.signal.sosfreqz."""
+    f = np.geomspace(10.0, d.rate_hz / 2 * (1 - 1e-6), 20000)
+    _, h = signal.sosfreqz(d.sos, worN=f, fs=d.rate_hz)
+    _, h0 = signal.sosfreqz(d.sos, worN=[0.0], fs=d.rate_hz)
+    db = 20 * np.log10(np.abs(h) / abs(h0[0]))
+    i = int(np.nonzero(db < level_db)[0][0])  # the first fall through the level, after any ripple peak
+    # linear interpolation in log frequency between the two grid points around the crossing
+    x0, x1, y0, y1 = np.log(f[i - 1]), np.log(f[i]), db[i - 1], db[i]
+    return float(np.exp(x0 + (level_db - y0) * (x1 - x0) / (y1 - y0)))
+
+
+ALIGNMENT_CASES = [(a, n, r) for a in ("butterworth", "bessel") for n in range(1, 9) for r in (None,)] + \
+    [("chebyshev", n, r) for n in range(2, 9) for r in (0.1, 0.5, 1.0)] + \
+    [("linkwitz-riley", n, None) for n in (2, 4, 6, 8)]
+
+
+@pytest.mark.parametrize("rate_hz", [44100.0, 48000.0, 96000.0])
+@pytest.mark.parametrize("f0_hz", [1000.0, 7500.0, 14000.0])
+@pytest.mark.parametrize("alignment,order,ripple", ALIGNMENT_CASES)
+def test_digital_half_power_point_lies_on_the_stated_f0(alignment, order, ripple, f0_hz, rate_hz):
+    # The half-power point is where |H|² is half its DC value (-3.01 dB; -6.02 dB for Linkwitz-Riley, two
+    # Butterworth halves in cascade: definition of the alignment). Located with scipy.signal.sosfreqz
+    # (reference library). Goal: within 1 % of the stated f0 at every rate.
+    d = design.lowpass(f0_hz, rate_hz, order=order, alignment=alignment, ripple_db=ripple)
+    level = -20 * math.log10(2.0) if alignment == "linkwitz-riley" else -10 * math.log10(2.0)
+    got = _digital_crossing_hz(d, level)
+    assert got == pytest.approx(f0_hz, rel=0.01)
+
+
+@pytest.mark.parametrize("order", range(2, 9))
+@pytest.mark.parametrize("ripple", [0.1, 0.5, 1.0, 2.0])
+def test_chebyshev_analog_shape_matches_scipy_cheby1(order, ripple):
+    # scipy.signal.cheby1(N, rp, 1, analog=True) (reference library) normalised to its ripple edge; rescaled
+    # so its half-power point (relative to DC) is at 1, it must equal our analog cascade at f/f0.
+    b, a = signal.cheby1(order, ripple, 1.0, analog=True)
+
+    def ref(w):
+        return np.abs(np.polyval(b, 1j * w) / np.polyval(a, 1j * w))
+
+    dc = ref(0.0)
+    w3 = optimize.brentq(lambda w: ref(w) / dc - 1 / math.sqrt(2), 1.0, 10.0)
+    d = design.lowpass(1000.0, 48000.0, order=order, alignment="chebyshev", ripple_db=ripple)
+    f = np.geomspace(50.0, 8000.0, 300)
+    ours = np.abs(d.analog_response(f))
+    np.testing.assert_allclose(ours, ref(f / 1000.0 * w3) / dc, rtol=1e-9)
+    # the passband rises by the ripple (even order) or dips by it (odd order), relative to DC
+    peak_db = 20 * np.log10(ours.max())
+    if order % 2 == 0:
+        assert peak_db == pytest.approx(ripple, abs=1e-3)
+
+
+def test_butterworth_prewarped_as_a_whole_is_the_per_section_cookbook_design():
+    # For Butterworth every section sits at f0, so prewarping the cascade at f0 is prewarping each section at
+    # its own f0: the W3C Audio EQ Cookbook low-pass per section, bit for bit.
+    d = design.lowpass(9000.0, 44100.0, order=4, alignment="butterworth")
+    per_section = design.digitise(d.sections, 44100.0, "bilinear")
+    np.testing.assert_array_equal(d.sos, per_section)

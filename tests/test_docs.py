@@ -4,11 +4,11 @@ import doctest
 
 import pytest
 
-import audition.design
+import audition.design.cascade
 import audition.loudness
 import audition.weighting
 
-MODULES = [audition.design, audition.loudness, audition.weighting]
+MODULES = [audition.design.cascade, audition.loudness, audition.weighting]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)

@@ -15,7 +15,8 @@ import pytest
 import scipy.signal
 import soundfile as sf
 
-from audition import audiofile, design, kernels
+from audition import annex2, design, kernels
+from audition.io import reader, writer
 
 RATE = 48000
 
@@ -81,12 +82,12 @@ def test_pcm_bytes_both_ways_equal_libsndfile(impl, tmp_path, fmt, ext, subtype)
     with sf.SoundFile(ref, "w", RATE, 3, subtype, format=fmt) as f:
         f.write((k << (32 - bits)).astype(np.int32))  # libsndfile converts left-justified int32
     ours = tmp_path / f"ours.{ext}"
-    with audiofile.AtomicWriter(ours, RATE, 3, format=fmt, subtype=subtype, dither=False) as w:
+    with writer.AtomicWriter(ours, RATE, 3, format=fmt, subtype=subtype, dither=False) as w:
         assert w._layout is not None  # the byte path, not libsndfile's conversion
         # exact levels: x = k / 2**(bits-1) quantises back to k without dither
         w.write(k / 2.0 ** (bits - 1))
     assert ours.read_bytes() == ref.read_bytes()
-    with audiofile.AudioReader(ref) as r:
+    with reader.AudioReader(ref) as r:
         assert r._layout is not None
         got = np.concatenate(list(r.blocks(999)))
     want, _ = sf.read(ref, dtype="float64", always_2d=True)
@@ -100,7 +101,7 @@ def test_other_encodings_stay_with_libsndfile(tmp_path, fmt, subtype):
     p = tmp_path / ("x.flac" if fmt == "FLAC" else "x.aiff" if fmt == "AIFF" else "x.wav")
     x = noise(2000, 2, level=0.1)
     sf.write(p, x, RATE, subtype=subtype, format=fmt)
-    with audiofile.AudioReader(p) as r:
+    with reader.AudioReader(p) as r:
         assert r._layout is None
         got = np.concatenate(list(r.blocks(700)))
     assert np.array_equal(got, sf.read(p, dtype="float64", always_2d=True)[0])
@@ -113,7 +114,7 @@ def test_both_implementations_render_the_same_bytes(tmp_path, monkeypatch):
     if kernels.compiled is None:
         pytest.skip("the C kernels were not built on this machine")
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, noise(70_001, 2, seed=5, level=0.3), RATE, "PCM_24")
+    writer.write_clip(src, noise(70_001, 2, seed=5, level=0.3), RATE, "PCM_24")
     d = design.lowpass(6000.0, RATE, order=4)
     outs = {}
     for name in BACKENDS:
@@ -137,8 +138,8 @@ def test_both_true_peak_scans_read_the_same_to_the_bit(screen):
     x = np.cumsum(rng.standard_normal((5000, 3)), axis=0) * 0.01  # smooth crests between samples
     readings = []
     for ns in (kernels.portable, kernels.compiled):
-        xx = np.vstack([np.zeros((truepeak.HISTORY, 3)), x])
-        buf = truepeak._Scratch(len(xx), 3)
+        xx = np.vstack([np.zeros((annex2.HISTORY, 3)), x])
+        buf = annex2._Scratch(len(xx), 3)
         peak, count = ns.true_peak_scan(xx, float(np.abs(x).max()), screen, buf)
         readings.append(peak)
         assert count > 0
@@ -154,7 +155,7 @@ def test_files_in_the_other_byte_order_read_as_libsndfile_reads_them(impl, tmp_p
     k = np.random.default_rng(3).integers(-(2**15), 2**15, (3000, 2))
     with sf.SoundFile(p, "w", RATE, 2, "PCM_16", format=fmt, endian=endian) as f:
         f.write((k << 16).astype(np.int32))
-    with audiofile.AudioReader(p) as r:
+    with reader.AudioReader(p) as r:
         assert r._layout is not None and r._layout[1] == (endian == "BIG")
         got = np.concatenate(list(r.blocks(1000)))
     assert np.array_equal(got, sf.read(p, dtype="float64", always_2d=True)[0])

@@ -15,9 +15,9 @@ import numpy as np
 import pytest
 
 from audition import design
-from audition.audiofile import write_clip
 from audition.cli import main
 from audition.errors import BadParameter
+from audition.io.writer import write_clip
 from audition.listen.abx import AbxSession, binomial_p_value, correct_needed
 from audition.listen.engine import END, Event, Mixer, parse_script, script_schedule
 from audition.listen.screen import CAUTION, Screen, split_keys
@@ -499,8 +499,10 @@ class FakeStream:
 
     played = []
 
-    def __init__(self, device, samplerate, channels, dtype, blocksize, callback):
+    def __init__(self, device, samplerate, channels, dtype, blocksize, callback, latency=None):
         self.callback, self.block, self.channels = callback, blocksize, channels
+        self.samplerate = samplerate
+        FakeStream.opened = dict(device=device, samplerate=samplerate, channels=channels, latency=latency)
         self.latency = 0.01
         FakeStream.played = []
 
@@ -523,11 +525,18 @@ class FakeStream:
 
 
 class FakeSounddevice:
+    """sounddevice's calls that listen makes; ``rates`` are the sample rates the devices take (None: any)."""
+
     OutputStream = FakeStream
 
-    def __init__(self, devices):
+    def __init__(self, devices, rates=None):
         self.devices = devices
+        self.rates = rates
         self.default = type("D", (), {"device": [-1, 1]})()
+
+    def check_output_settings(self, device=None, samplerate=None, channels=None, dtype=None):
+        if self.rates is not None and samplerate not in self.rates:
+            raise ValueError("Invalid sample rate")  # what PortAudio says (paInvalidSampleRate)
 
     def query_devices(self):
         return [dict(d, index=i) for i, d in enumerate(self.devices)]
@@ -629,7 +638,7 @@ def test_b_from_a_preset_and_c_against(monkeypatch, capsys, clip):
                  "--script", "C:0.3,B:0.3", "--ramp-seconds", "0"]) == 0
     out = capsys.readouterr().out
     assert "B: preset cassette-ferric" in out and "C: low-pass 6,000 Hz, order 2, Q 0.6" in out
-    from audition.presets import FilterSpec
+    from audition.plan.presets import FilterSpec
 
     plan = os.path.join(os.path.dirname(clip), "plan.toml")
     with open(plan, "w") as f:
@@ -639,10 +648,321 @@ def test_b_from_a_preset_and_c_against(monkeypatch, capsys, clip):
 
 
 # ---------------------------------------------------------------------------
+# Too few trials, the screen at 80 x 24, the log's folder, underruns, a missing C
+# ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("alpha", [0.05, 0.01, 0.1])
+def test_trials_needed_is_where_scipy_first_allows_significance(alpha):
+    # Reference library: scipy.stats.binomtest, one-sided; the best score of n trials is n of n.
+    from scipy.stats import binomtest
+
+    from audition.listen.abx import trials_needed
+
+    n = trials_needed(alpha)
+    assert binomtest(n, n, 0.5, alternative="greater").pvalue < alpha
+    assert binomtest(n - 1, n - 1, 0.5, alternative="greater").pvalue >= alpha
+    assert correct_needed(n, alpha) == n and correct_needed(n - 1, alpha) is None
+
+
+def test_too_few_trials_says_the_best_p_and_how_many_are_needed():
+    from scipy.stats import binomtest
+
+    from audition.listen.abx import too_few_trials
+
+    best = binomtest(4, 4, 0.5, alternative="greater").pvalue  # 0.0625 (scipy.stats, reference library)
+    text = too_few_trials(4)
+    assert f"p = {best:g}" in text and "not below 0.05" in text and "5 trials are the fewest" in text
+    assert too_few_trials(5) is None and too_few_trials(16) is None
+
+
+def long_region(tmp_path, versions=3, channels=2, rate=44100):
+    """A region with the longest names the CLI makes: a preset, and a second candidate."""
+    path = tmp_path / f"{versions}-{channels}" / ("transfer-of-a-rather-long-reel-name_side-A_take-2_" + "x" * 40
+                                                 + ".wav")
+    path.parent.mkdir(exist_ok=True)
+    write_clip(path, noise(2.0, channels=channels, amp=0.05, rate=rate), rate, "FLOAT")
+    names = [("original", None),
+             ("preset open-reel-19cms (low-pass 14,000 Hz, order 2 bessel, prewarped at its -3 dB point)",
+              design.lowpass(14000.0, rate, order=2, alignment="bessel")),
+             ("plan restoration-plan-for-reel-17.toml (low-pass 6,000 Hz, order 4 butterworth)",
+              design.lowpass(6000.0, rate, order=4, alignment="butterworth"))]
+    return build_region(str(path), names[:versions])
+
+
+def screen_states(tmp_path):
+    """(name, Screen) in the states that hold the most text."""
+    region3, region2 = long_region(tmp_path), long_region(tmp_path, versions=2)
+    region6 = long_region(tmp_path, versions=3, channels=6)
+    log = "/home/technician/.local/share/audition/listen-abx-20250101T000000Z.json"
+
+    def normal(region, help_on=False, key=None):
+        m = Mixer([v.samples for v in region.versions], [v.gain_db for v in region.versions], region.rate_hz,
+                  region_frames=region.region_frames, max_block=512, out_channels=region.channels)
+        s = Screen(region, m, device_name="3 HDA Intel PCH: ALC892 Analog (hw:0,0)",
+                   output_note="stream 48000 Hz, converted here from 44100 Hz")
+        s.show_help = help_on
+        if key:
+            s.handle(key)
+        return s
+
+    def blind(trials, answers, help_on=False):
+        m = Mixer([v.samples for v in region2.versions], [0.0, 0.0], region2.rate_hz, max_block=512, blind=True)
+        s = Screen(region2, m, AbxSession(trials, seed=3), device_name="0 pulse",
+                   output_note="stream 44100 Hz, the file's rate", log_path=log)
+        for _ in range(answers):
+            s.handle("2")
+        s.show_help = help_on
+        return s
+
+    return [("three versions", normal(region3)), ("three versions, help", normal(region3, True)),
+            ("six channels, help", normal(region6, True)), ("two versions, c pressed", normal(region2, key="c")),
+            ("blind, 4 trials", blind(4, 1)), ("blind, 4 trials, done", blind(4, 4)),
+            ("blind, 16 trials, help", blind(16, 3, True)), ("blind done, help", blind(4, 4, True))]
+
+
+def flat(lines):
+    return " ".join(" ".join(lines).split())
+
+
+def test_the_screen_fits_80_by_24_without_cutting_anything(tmp_path):
+    # 80 x 24, the VT100's screen and still terminals' default size (common practice, no source);
+    # run_terminal draws one column short of the width. Everything said must be there in full.
+    for name, s in screen_states(tmp_path):
+        lines = s.lines(79, 24)
+        assert len(lines) <= 24 and max(len(x) for x in lines) <= 79, (name, lines)
+        text = flat(lines)
+        assert flat([CAUTION]) in text, name
+        for v in s.region.versions:
+            assert flat([v.name]) in text, (name, v.name)
+        assert os.path.basename(s.region.path) in text.replace(" ", "")
+        assert ("q quit" in text) or ("q quit" in flat(s.help_lines(79)) and s.show_help), name
+        if s.abx is not None:
+            assert s.log_path in text.replace(" ", ""), name  # a long path may break across lines
+            if s.abx.done:
+                assert flat([s.abx.verdict()]) in text, name
+            if s.abx.trials == 4:
+                assert "4 trials can never show a difference" in text and "5 trials are the fewest" in text
+        if s.show_help:
+            assert "this list on / off" in text, name
+
+
+def test_c_without_a_c_version_says_so(tmp_path):
+    region = small_region(tmp_path)
+    m = Mixer([v.samples for v in region.versions], [0.0, 0.0], RATE, max_block=512)
+    s = Screen(region, m)
+    s.handle("c")
+    assert m.want == 0 and "no C version" in s.message and "--against" in s.message
+    assert "no C version" in flat(s.lines())
+    s.handle("b")
+    assert m.want == 1 and s.message == ""
+
+
+def test_underruns_are_counted_on_the_screen_and_per_trial(tmp_path):
+    class Underflow:
+        output_underflow = True
+
+        def __bool__(self):
+            return True
+
+    region = small_region(tmp_path)
+    m = Mixer([v.samples for v in region.versions], [0.0, 0.0], RATE, max_block=512, blind=True)
+    s = Screen(region, m, AbxSession(6, seed=1))
+    out = np.zeros((512, 2), np.float32)
+    m.callback(out, 512, None, Underflow())
+    m.callback(out, 512, None, Underflow())
+    assert "underruns 2" in flat(s.lines())
+    s.handle("1")
+    m.callback(out, 512, None, None)
+    s.handle("2")
+    assert [a.underruns for a in s.abx.answers] == [2, 0]
+    assert [a["underruns"] for a in s.abx.to_dict()["answers"]] == [2, 0]
+
+
+def test_the_terminal_screen_at_80_by_24_through_a_terminal_emulator(tmp_path):
+    # The frames run_terminal writes, read back by pyte (an independent VT100 emulator) on an
+    # 80 x 24 screen: the first line stays on top (nothing scrolled away) and the last
+    # ones are whole.
+    import fcntl
+    import pty
+    import select
+    import struct
+    import termios
+
+    import pyte
+
+    from audition.listen.screen import run_terminal
+
+    region = long_region(tmp_path, versions=2)  # so that c has nothing to play
+    m = Mixer([v.samples for v in region.versions], [v.gain_db for v in region.versions], region.rate_hz,
+              region_frames=region.region_frames, max_block=512)
+    s = Screen(region, m, device_name="0 pulse", output_note="stream 44100 Hz, the file's rate")
+    master, slave = pty.openpty()
+    fcntl.ioctl(master, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 80, 0, 0))
+    tin, tout = os.fdopen(slave, "r", closefd=False), os.fdopen(os.dup(slave), "w")
+    worker = threading.Thread(target=run_terminal, args=(FakeSounddevice([device("Speakers", 2)]), s,
+                                                         {"index": 1, "name": "Speakers"}, tin, tout))
+    worker.start()
+    got = b""
+
+    def read_for(seconds, until=None):
+        nonlocal got
+        end = time.monotonic() + seconds
+        while time.monotonic() < end and not (until and until in got):
+            if select.select([master], [], [], 0.05)[0]:
+                got += os.read(master, 1 << 16)
+
+    try:
+        read_for(10.0, until=b"caution")
+        os.write(master, b"c")
+        read_for(10.0, until=b"no C version")
+        read_for(0.3)  # a few more frames
+        frames = got
+        os.write(master, b"q")
+        worker.join(timeout=10)
+    finally:
+        tout.close()
+        os.close(slave)
+        os.close(master)
+    assert not worker.is_alive()
+    screen = pyte.Screen(80, 24)
+    pyte.ByteStream(screen).feed(frames)
+    shown = [line.rstrip() for line in screen.display]
+    assert shown[0].startswith("audition listen  transfer-of-a-rather-long-reel-name")
+    text = flat(shown)
+    for expected in [CAUTION, "q quit", "no C version in this session"] + [v.name for v in region.versions]:
+        assert flat([expected]) in text, expected
+    last = max(i for i, line in enumerate(shown) if line)
+    assert shown[last].endswith("noise-at-work rules")  # the caution ends the frame, nothing left over below
+
+
+def test_data_folder_follows_the_xdg_base_directory_specification(monkeypatch, tmp_path):
+    # XDG Base Directory Specification 0.8: $XDG_DATA_HOME, default $HOME/.local/share; a
+    # relative path there is invalid and ignored.
+    from audition.cli.listen import data_folder
+
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg"))
+    assert data_folder() == str(tmp_path / "xdg" / "audition")
+    monkeypatch.setenv("XDG_DATA_HOME", "relative/data")
+    assert data_folder() == str(tmp_path / "home" / ".local" / "share" / "audition")
+    monkeypatch.delenv("XDG_DATA_HOME")
+    assert data_folder() == str(tmp_path / "home" / ".local" / "share" / "audition")
+
+
+def test_a_blind_session_warns_logs_to_the_data_folder_and_says_where(monkeypatch, capsys, tmp_path, clip):
+    # Through the CLI, with the terminal loop replaced by a listener who answers every trial.
+    import glob
+
+    import audition.cli.listen as cli_listen
+    import audition.listen.screen as screen_mod
+
+    seen = {}
+
+    def listener(sd, screen, device, **kw):
+        seen["screen"] = flat(screen.lines(79, 24))
+        screen.mixer.underruns = 1  # as the callback would after a dropout
+        for _ in range(screen.abx.trials):
+            screen.handle("1")
+        screen.handle("q")
+
+    monkeypatch.setitem(sys.modules, "sounddevice", FakeSounddevice([device("Speakers", 2)]))
+    monkeypatch.setattr(cli_listen, "has_terminal", lambda: True)
+    monkeypatch.setattr(screen_mod, "run_terminal", listener)
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg"))
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))  # the screen shortens paths under it to ~
+    work = tmp_path / "work"
+    work.mkdir()
+    monkeypatch.chdir(work)
+    assert main(["listen", clip, "--f0", "5000", "--blind", "--trials", "4", "--seed", "7"]) == 0
+    cap = capsys.readouterr()
+    assert "4 trials can never show a difference" in cap.err and "p = 0.0625" in cap.err and "5 trials" in cap.err
+    logs = glob.glob(str(tmp_path / "xdg" / "audition" / "listen-abx-*.json"))
+    assert len(logs) == 1 and f"session log written to {logs[0]}" in cap.out
+    assert os.listdir(work) == []  # nothing in the current folder
+    assert "4 trials can never show a difference" in seen["screen"] and logs[0] in seen["screen"].replace(" ", "")
+    log = json.load(open(logs[0]))
+    assert log["underruns"] == 1 and log["completed"] and len(log["answers"]) == 4
+    assert log["answers"][0]["underruns"] == 1 and log["answers"][1]["underruns"] == 0
+    # and --log puts it where it is told
+    assert main(["listen", clip, "--f0", "5000", "--blind", "--trials", "5", "--log", "mine.json"]) == 0
+    assert os.listdir(work) == ["mine.json"] and "mine.json" in capsys.readouterr().out
+
+
+# ---------------------------------------------------------------------------
+# Playing at another rate than the file's
+# ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("from_hz, to_hz", [(44100, 48000), (48000, 44100), (96000, 48000)])
+@pytest.mark.parametrize("f_hz", [1000.0, 15000.0, 19500.0])
+def test_convert_rate_keeps_a_sine(from_hz, to_hz, f_hz):
+    # Reference: the same sine sampled at the new rate (analytic), away from the ends.
+    from audition.listen.sources import convert_rate
+
+    t_in, t_out = np.arange(from_hz) / from_hz, np.arange(to_hz) / to_hz
+    y = convert_rate(np.sin(2 * np.pi * f_hz * t_in)[:, None], from_hz, to_hz)[:, 0]
+    assert len(y) == to_hz
+    err = y[4000:-4000] - np.sin(2 * np.pi * f_hz * t_out)[4000:-4000]
+    assert 20 * np.log10(np.sqrt(np.mean(err ** 2)) / np.sqrt(0.5)) < -60  # within 0.01 dB and 60 dB clean
+
+
+def test_convert_rate_rejects_what_the_new_rate_cannot_hold():
+    # 23 kHz at 48 kHz has no place at 44.1 kHz (Nyquist 22.05 kHz): without filtering it would
+    # fold to 21.1 kHz (sampling theorem). What comes out, relative to the sine's mean square.
+    from audition.listen.sources import convert_rate
+
+    t = np.arange(2 * 48000) / 48000
+    y = convert_rate(np.sin(2 * np.pi * 23000.0 * t)[:, None], 48000, 44100)[4000:-4000, 0]
+    assert 10 * np.log10(np.mean(y ** 2) / 0.5) < -90
+
+
+def test_a_region_converted_to_the_output_rate_keeps_its_place_and_loudness(tmp_path):
+    # pyloudnorm (reference library) on the converted versions against the file's own.
+    import pyloudnorm
+
+    from scipy.signal import butter, sosfilt
+
+    rate = 44100
+    # below 20 kHz, what both rates carry (the conversion keeps 0 ... 20 kHz, see convert_rate)
+    x = sosfilt(butter(8, 18000, fs=rate, output="sos"), noise(3.0, amp=0.05, rate=rate), axis=0)
+    path = tmp_path / "c.wav"
+    write_clip(path, x, rate, "FLOAT")
+    lp = design.lowpass(3000.0, rate, order=4, alignment="butterworth")
+    r = build_region(str(path), [("o", None), ("lp", lp)], start_seconds=0.5, end_seconds=2.5, out_rate_hz=48000)
+    assert r.rate_hz == 48000 and r.file_rate_hz == rate and r.converted
+    assert r.region_frames == round(2.0 * 48000) and r.start_seconds == pytest.approx(0.5)
+    a = r.versions[0].samples[:r.region_frames]
+    lkfs_file = pyloudnorm.Meter(rate, filter_class="DeMan").integrated_loudness(x[int(0.5 * rate):int(2.5 * rate)])
+    lkfs_out = pyloudnorm.Meter(48000, filter_class="DeMan").integrated_loudness(a.astype(float))
+    assert lkfs_out == pytest.approx(lkfs_file, abs=0.05)
+    assert r.versions[1].gain_db == 0.0 and r.versions[0].gain_db < -1.0
+
+
+def test_a_device_that_refuses_the_files_rate_gets_a_converted_region(monkeypatch, capsys, clip):
+    # The clip is at 48 kHz; a device taking 44.1 kHz only (an old card driven directly).
+    card = dict(device("Speakers", 2), default_samplerate=44100.0)
+    monkeypatch.setitem(sys.modules, "sounddevice", FakeSounddevice([card], rates={44100}))
+    assert main(["listen", clip, "--f0", "3000", "--script", "A:0.5", "--ramp-seconds", "0"]) == 0
+    assert "stream 44100 Hz, converted here from 48000 Hz" in capsys.readouterr().out
+    assert FakeStream.opened["samplerate"] == 44100
+    assert main(["listen", clip, "--f0", "3000", "--script", "A:0.5", "--device-rate", "48000"]) == 2
+    err = capsys.readouterr().err
+    assert "refuses 2 channel(s) at --device-rate 48000 Hz" in err and err.count("\n") == 1
+    monkeypatch.setitem(sys.modules, "sounddevice", FakeSounddevice([device("Speakers", 2)]))
+    assert main(["listen", clip, "--f0", "3000", "--script", "A:0.5", "--ramp-seconds", "0"]) == 0
+    assert "stream 48000 Hz, the file's rate" in capsys.readouterr().out
+    assert FakeStream.opened["samplerate"] == 48000 and FakeStream.opened["latency"] == 0.1
+
+
+# ---------------------------------------------------------------------------
 # End to end through the real sound stack (PulseAudio null sink)
 # ---------------------------------------------------------------------------
 
 REQUIRE_AUDIO = bool(os.environ.get("CI") or os.environ.get("AUDITION_REQUIRE_AUDIO"))
+#: The sinks to play to, comma-separated PulseAudio sink names (CI gives one at 44.1 kHz and one
+#: at 48 kHz, see .ci/run); unset: the server's default sink.
+SINKS = [x.strip() for x in os.environ.get("AUDITION_TEST_SINKS", "").split(",") if x.strip()] or ["default"]
 
 
 def sound_stack_missing() -> str | None:
@@ -663,28 +983,33 @@ def sound_stack_missing() -> str | None:
     return None
 
 
-def test_end_to_end_through_pulseaudio(tmp_path):
-    why = sound_stack_missing()
-    if why:
-        if REQUIRE_AUDIO:
-            pytest.fail(f"the real sound stack is required here (CI or AUDITION_REQUIRE_AUDIO) but: {why}")
-        pytest.skip(f"real sound stack unavailable: {why}")
-    from scipy.signal import butter, sosfilt
+def sink_and_rate(name: str) -> tuple[str, int]:
+    """(sink, its sample rate in Hz) from pactl; "default" is the server's default sink."""
+    if name == "default":
+        name = subprocess.run(["pactl", "get-default-sink"], capture_output=True, text=True,
+                              timeout=10).stdout.strip()
+    for line in subprocess.run(["pactl", "list", "short", "sinks"], capture_output=True, text=True,
+                               timeout=10).stdout.splitlines():
+        fields = line.split("\t")
+        if len(fields) > 3 and fields[1] == name:
+            return name, int(fields[3].split()[-1].removesuffix("Hz"))  # "s16le 2ch 48000Hz"
+    pytest.fail(f"no PulseAudio sink named {name!r} (AUDITION_TEST_SINKS)")
 
-    rate = 44100
-    x = np.random.default_rng(1770).normal(0.0, 0.05, (4 * rate, 2))  # white noise, seed 1770
-    clip = tmp_path / "noise.wav"
-    write_clip(clip, x, rate, "FLOAT")
-    sink = subprocess.run(["pactl", "get-default-sink"], capture_output=True, text=True, timeout=10).stdout.strip()
+
+def record_listen(tmp_path, sink, sink_rate, argv):
+    """Run ``audition listen`` ARGV into ``sink`` while recording its monitor at the sink's own rate.
+
+    The recording is at the sink's rate, so nothing is converted on the way back;
+    PULSE_SINK sends the child's stream to ``sink`` whatever the default is.
+    """
     raw = tmp_path / "monitor.raw"
     with open(raw, "wb") as f:
         rec = subprocess.Popen(["parec", "--latency-msec=20", "-d", f"{sink}.monitor", "--format=float32le",
-                                f"--rate={rate}", "--channels=2", "--raw"], stdout=f)
+                                f"--rate={sink_rate}", "--channels=2", "--raw"], stdout=f)
     try:
         time.sleep(0.5)
-        run = subprocess.run([sys.executable, "-m", "audition", "listen", str(clip), "--f0", "2000", "--order", "4",
-                              "--alignment", "butterworth", "--script", "A:1.5,B:1.5", "--device", "pulse",
-                              "--ramp-seconds", "0.25"], capture_output=True, text=True, timeout=120)
+        run = subprocess.run([sys.executable, "-m", "audition", "listen"] + argv, capture_output=True, text=True,
+                             timeout=120, env=dict(os.environ, PULSE_SINK=sink))
         time.sleep(0.5)
     finally:
         rec.send_signal(signal.SIGINT)
@@ -692,41 +1017,98 @@ def test_end_to_end_through_pulseaudio(tmp_path):
     assert run.returncode == 0, run.stderr
     y = np.fromfile(raw, dtype=np.float32).reshape(-1, 2).astype(np.float64)
     sounding = np.flatnonzero(np.max(np.abs(y), axis=1) > 1e-5)
-    assert len(sounding), "the monitor recorded silence"
-    y = y[sounding[0]:sounding[-1] + 1]
+    assert len(sounding), f"the monitor of {sink} recorded silence; listen said: {run.stdout} {run.stderr}"
+    return y[sounding[0]:sounding[-1] + 1], run.stdout
+
+
+def band_db(z, rate, lo_hz, hi_hz=None):
+    """Share of the power of ``z`` between lo_hz and hi_hz (or above lo_hz), dB, by Welch's method.
+
+    scipy.signal.welch (reference library), Hann windows of 4096 frames.
+    """
+    from scipy.signal import welch
+
+    f, p = welch(z, rate, nperseg=4096, axis=0)
+    p = p.sum(axis=-1)
+    band = (f >= lo_hz) & (f < (hi_hz if hi_hz is not None else np.inf))
+    return 10 * np.log10(p[band].sum() / p.sum())
+
+
+@pytest.mark.parametrize("case", ["same rate", "other rate, server converts", "other rate, converted here"])
+@pytest.mark.parametrize("sink_name", SINKS)
+def test_end_to_end_through_pulseaudio(tmp_path, sink_name, case):
+    # A and B of a noise clip played through PortAudio, the ALSA "pulse" device and a PulseAudio
+    # null sink, recorded from its monitor: A then B at the times asked, each with the treble
+    # it should have, at matched loudness. The clip runs at the sink's rate, or at the other of
+    # 44.1/48 kHz, played at the file's rate (the server converts) or with --device-rate (here).
+    why = sound_stack_missing()
+    if why:
+        if REQUIRE_AUDIO:
+            pytest.fail(f"the real sound stack is required here (CI or AUDITION_REQUIRE_AUDIO) but: {why}")
+        pytest.skip(f"real sound stack unavailable: {why}")
+    from scipy.signal import butter, resample_poly, sosfilt
+
+    sink, sink_rate = sink_and_rate(sink_name)
+    rate = sink_rate if case == "same rate" else (48000 if sink_rate != 48000 else 44100)
+    x = np.random.default_rng(1770).normal(0.0, 0.05, (4 * rate, 2))  # white noise, seed 1770
+    if case == "other rate, server converts":
+        # The server's own converter is not ours to test: PulseAudio 16's default one takes
+        # -2.5 dB at 18 kHz and -8 dB at 20 kHz (44.1 -> 48 kHz, measured here), which would
+        # make A quieter than matched. Noise below 15 kHz (scipy.signal.butter) keeps clear of it.
+        x = sosfilt(butter(8, 15000, fs=rate, output="sos"), x, axis=0)
+    clip = tmp_path / "noise.wav"
+    write_clip(clip, x, rate, "FLOAT")
+    argv = [str(clip), "--f0", "2000", "--order", "4", "--alignment", "butterworth", "--script", "A:1.5,B:1.5",
+            "--device", "pulse", "--ramp-seconds", "0.25"]
+    if case == "other rate, converted here":
+        argv += ["--device-rate", str(sink_rate)]
+    y, out = record_listen(tmp_path, sink, sink_rate, argv)
+    converted = f"converted here from {rate} Hz" in out
+    assert converted == (case == "other rate, converted here"), out
+
+    # What should be heard, at the sink's rate: the file, and the file through
+    # scipy.signal.butter's 4th-order 2 kHz low-pass (reference library, the filter asked for),
+    # each taken to the sink's rate by scipy.signal.resample_poly (reference library).
+    g = np.gcd(rate, sink_rate)
+    a_ref = resample_poly(x, sink_rate // g, rate // g, axis=0)
+    b_ref = resample_poly(sosfilt(butter(4, 2000, fs=rate, output="sos"), x, axis=0), sink_rate // g, rate // g,
+                          axis=0)
 
     # Treble share (power above 5 kHz over all) in 50 ms windows, with a scipy.signal.butter
-    # high-pass as the measuring filter; the same measure on the file and on the file through
-    # scipy.signal.butter's 4th-order 2 kHz low-pass (reference library, the filter asked for).
-    hp = butter(8, 5000, "high", fs=rate, output="sos")
+    # high-pass as the measuring filter.
+    hp = butter(8, 5000, "high", fs=sink_rate, output="sos")
 
     def treble_db(z):
         return 10 * np.log10(np.mean(sosfilt(hp, z, axis=0)[2048:] ** 2) / np.mean(z[2048:] ** 2))
 
-    w = int(0.05 * rate)
+    w = int(0.05 * sink_rate)
     with np.errstate(invalid="ignore", divide="ignore"):
         windows = np.array([treble_db(y[i:i + w + 2048]) for i in range(0, len(y) - w - 2048, w)])
     # a dropout (an underrun on a loaded machine) leaves a silent window: tolerate two
     sounding = np.isfinite(windows)
-    assert np.sum(~sounding) <= 2, f"{np.sum(~sounding)} silent 50 ms windows in the recording"
-    b_ref = sosfilt(butter(4, 2000, fs=rate, output="sos"), x, axis=0)
-    a_expect, b_expect = treble_db(x), treble_db(b_ref)
+    assert np.sum(~sounding) <= 2, f"{np.sum(~sounding)} silent 50 ms windows in the recording; {out}"
+    a_expect, b_expect = treble_db(a_ref), treble_db(b_ref)
     is_a = windows > (a_expect + b_expect) / 2
     switch = int(np.argmin(is_a | ~sounding)) * w  # first sounding window that is B
     assert np.all(is_a[:switch // w] | ~sounding[:switch // w])
     assert not np.any(is_a[switch // w + 1:])
     seg_a, seg_b = y[:switch], y[switch + w:]
-    assert len(seg_a) / rate == pytest.approx(1.5, abs=0.15)
-    assert len(seg_b) / rate == pytest.approx(1.45, abs=0.15)
-    # measured here: A -1.118 dB against -1.119 expected, B -36.67 against -36.67
+    assert len(seg_a) / sink_rate == pytest.approx(1.5, abs=0.15)
+    assert len(seg_b) / sink_rate == pytest.approx(1.45, abs=0.15)
+    # measured here at 44.1 kHz: A -1.118 dB against -1.119 expected, B -36.67 against -36.67
     assert treble_db(seg_a) == pytest.approx(a_expect, abs=0.5)
     assert treble_db(seg_b) == pytest.approx(b_expect, abs=1.5)
     assert a_expect - b_expect > 25.0
+    if case != "other rate, server converts":
+        # The top of the original arrives whole: the share of 17-20 kHz in A within 0.5 dB of
+        # the reference (PulseAudio 16's own 44.1 -> 48 kHz conversion lost 2.8 dB of it, measured here).
+        assert band_db(seg_a[int(0.4 * sink_rate):], sink_rate, 17000, 20000) == pytest.approx(
+            band_db(a_ref, sink_rate, 17000, 20000), abs=0.5)
     # Matched level: pyloudnorm (reference library) on the part of A after the start ramp
-    # and on B, within 0.3 LU (short segments of noise; 0.07 LU measured here).
+    # and on B, within 0.3 LU (short segments of noise; 0.07 LU measured here at 44.1 kHz).
     import pyloudnorm
 
-    meter = pyloudnorm.Meter(rate, filter_class="DeMan")
-    la = meter.integrated_loudness(seg_a[int(0.4 * rate):])
-    lb = meter.integrated_loudness(seg_b[: int(1.2 * rate)])
+    meter = pyloudnorm.Meter(sink_rate, filter_class="DeMan")
+    la = meter.integrated_loudness(seg_a[int(0.4 * sink_rate):])
+    lb = meter.integrated_loudness(seg_b[: int(1.2 * sink_rate)])
     assert la == pytest.approx(lb, abs=0.3)

@@ -109,20 +109,3 @@ def test_power_dbfs_convention():
     # dBFS as 20 log10(rms): a full-scale sine has mean square 1/2 and reads -3.01 dBFS (GUIDE convention).
     assert measure.power_dbfs(0.5) == pytest.approx(-3.0103, abs=1e-4)
     assert measure.power_dbfs(0.0) == -math.inf
-
-
-def test_planner_power_responses_match_scipy_sosfreqz():
-    # Reference library: scipy.signal.sosfreqz gives H(e^jw) of the same sections; the planner's real-only
-    # |H|^2 (audition.plan.power_responses) must agree for every kind of candidate, orders 1 to 4.
-    from audition import plan
-
-    rate = 48000
-    f = np.linspace(0, rate / 2, 2049)
-    ds = [design.lowpass(5000, rate, q=0.6), design.lowpass(9000, rate, order=4, alignment="bessel"),
-          design.lowpass(3000, rate, order=1), design.lowpass(12000, rate, q=1.0, highpass_hz=30.0),
-          design.lowpass(20000, rate, order=4, alignment="butterworth", method="matched")]
-    h2 = plan.power_responses(ds, f)
-    for row, d in zip(h2, ds):
-        _, h = signal.sosfreqz(d.sos, worN=f, fs=rate)
-        np.testing.assert_allclose(row, np.abs(h) ** 2, rtol=1e-9, atol=1e-12)
-    assert np.all(h2 >= 0)

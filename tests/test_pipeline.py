@@ -18,7 +18,9 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from audition import audiofile, design, pipeline, presets, synth
+from audition import design, pipeline, synth
+from audition.io import writer
+from audition.plan import presets
 from audition.cli import main
 from audition.errors import BadInputFile, BadParameter, OutputRefused
 from audition.weighting import power_gain
@@ -37,7 +39,7 @@ def clip():
 @pytest.fixture
 def mix(tmp_path):
     path = tmp_path / "mix.wav"
-    audiofile.write_clip(path, clip().mix, RATE, "FLOAT")
+    writer.write_clip(path, clip().mix, RATE, "FLOAT")
     return str(path)
 
 
@@ -127,10 +129,10 @@ def test_noise_clip_measurement_equals_noise_bandwidth(tmp_path):
     # result, analog-electronics handbooks, from memory), here measured on a separate noise clip.
     rng = np.random.default_rng(17)
     noise = rng.standard_normal((RATE * 6, 1)) * 10 ** (-45 / 20)
-    audiofile.write_clip(tmp_path / "leader.wav", noise, RATE, "FLOAT")
+    writer.write_clip(tmp_path / "leader.wav", noise, RATE, "FLOAT")
     c = clip()
-    audiofile.write_clip(tmp_path / "prog.wav", c.programme[int(LEAD_IN * RATE):] + noise[:len(c.mix) - int(LEAD_IN * RATE)],
-                         RATE, "FLOAT")
+    writer.write_clip(tmp_path / "prog.wav", c.programme[int(LEAD_IN * RATE):] + noise[:len(c.mix) - int(LEAD_IN * RATE)],
+                      RATE, "FLOAT")
     f0, q = 3000.0, 0.7071
     spec = presets.FilterSpec("t", f0_hz=f0, q=q)
     j = pipeline.render_job(tmp_path / "prog.wav", tmp_path / "out.wav", spec=spec,
@@ -153,7 +155,7 @@ def test_failures_leave_nothing_behind(mix, tmp_path):
                             report_path=tmp_path / "no-such-folder" / "r.html")
     # Hiss alone, nowhere quieter: the automatic noise reference has nothing to find.
     steady = tmp_path / "steady.wav"
-    audiofile.write_clip(steady, clip().hiss, RATE, "FLOAT")
+    writer.write_clip(steady, clip().hiss, RATE, "FLOAT")
     before = listing(tmp_path)
     with pytest.raises(BadInputFile, match="no quiet frames"):
         pipeline.render_job(steady, tmp_path / "o.wav", auto=pipeline.PlanSettings())
@@ -182,7 +184,7 @@ def test_report_failure_takes_the_render_back(mix, tmp_path, monkeypatch):
 
 def test_cli_auto_report_is_self_contained(tmp_path, capsys):
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, clip().mix, RATE, "PCM_16")
+    writer.write_clip(src, clip().mix, RATE, "PCM_16")
     rc = main(["render", str(src), str(tmp_path / "out.wav"), "--auto", "--report", str(tmp_path / "r.html"), "--json"])
     assert rc == 0
     j = json.loads(capsys.readouterr().out)
@@ -201,7 +203,7 @@ def test_cli_auto_report_is_self_contained(tmp_path, capsys):
 def test_cli_plan_save_round_trips_into_render(tmp_path, capsys):
     # `plan --save` then `render --plan`: the rendered sections are the plan's choice.
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, clip().mix, RATE, "FLOAT")
+    writer.write_clip(src, clip().mix, RATE, "FLOAT")
     assert main(["plan", str(src), "--save", str(tmp_path / "p.toml"), "--json"]) == 0
     chosen = json.loads(capsys.readouterr().out)["choice"]
     assert main(["render", str(src), str(tmp_path / "o.wav"), "--plan", str(tmp_path / "p.toml"), "--json"]) == 0
@@ -214,7 +216,7 @@ def test_cli_plan_save_round_trips_into_render(tmp_path, capsys):
 @pytest.mark.parametrize("name", sorted(p.stem for p in presets.bundled_folder().glob("*.toml")))
 def test_cli_every_bundled_preset_renders(name, tmp_path, capsys):
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, clip().mix[:RATE * 2], RATE, "PCM_16")
+    writer.write_clip(src, clip().mix[:RATE * 2], RATE, "PCM_16")
     assert main(["render", str(src), str(tmp_path / "o.wav"), "--preset", name, "--json"]) == 0
     j = json.loads(capsys.readouterr().out)
     spec = presets.find(name)
@@ -231,7 +233,7 @@ def test_cli_every_bundled_preset_renders(name, tmp_path, capsys):
 ])
 def test_cli_errors_one_line_exit_2_nothing_written(args, needle, tmp_path, capsys):
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, clip().mix[:RATE * 2], RATE, "PCM_16")
+    writer.write_clip(src, clip().mix[:RATE * 2], RATE, "PCM_16")
     bad = tmp_path / "bad.toml"
     bad.write_text('[lowpass]\nf0_hz = 9000.0\norder = 4\nalignment = "elliptic"\n')
     args = [str(bad) if a == "BAD" else a for a in args]
@@ -246,17 +248,20 @@ def test_cli_errors_one_line_exit_2_nothing_written(args, needle, tmp_path, caps
 
 
 def test_planned_candidates_have_alignment_section_values(mix):
-    # Every fourth-order candidate the planner offers comes with its alignment's section values, and keeps
+    # Every fourth-order shape the planner searches comes with its alignment's section values, and keeps
     # them through a plan file. Coefficients a_i, b_i of the normalised sections b_i s^2 + a_i s + 1 from the
     # tables of R. Mancini (ed.), "Op Amps for Everyone", Texas Instruments SLOD006, ch. 16 (Butterworth and
     # Bessel, -3 dB at the cutoff; from memory): Q_i = sqrt(b_i)/a_i, section f0 = f0 / sqrt(b_i).
     # Second order: Butterworth Q = 1/sqrt(2) (alignment definition).
     tables = {"butterworth": [(1.8478, 1.0), (0.7654, 1.0)], "bessel": [(1.3397, 0.4889), (0.7743, 0.3890)],
               None: [(math.sqrt(2), 1.0)]}
-    survey, pl = pipeline.plan_path(mix, pipeline.NoiseReference(), pipeline.PlanSettings(orders=(2, 4)))
+    from audition.plan import shapes
+
     seen = set()
-    for cand in pl.front + (pl.choice,):
-        d = cand.design
+    for shape in shapes.shapes((2, 4)):
+        if shape.free:
+            continue  # a cascade of free Qs has no table
+        d = shape.design(6000.0, RATE)
         if d.order == 2 and abs(d.q - 1 / math.sqrt(2)) > 1e-9:
             continue  # a second-order candidate of another Q
         if d.alignment not in tables:

@@ -6,7 +6,8 @@ import math
 import numpy as np
 import pytest
 
-from audition import design, presets
+from audition import design
+from audition.plan import presets
 from audition.cli import main
 from audition.errors import AuditionError, BadInputFile, BadParameter
 
@@ -53,7 +54,9 @@ def test_from_design_round_trip_for_each_kind(tmp_path):
     ('[lowpass]\nq = 0.7\n', "lowpass.f0_hz", "is missing"),
     ('[lowpass]\nf0_hz = -5.0\n', "lowpass.f0_hz", "positive number"),
     ('[lowpass]\nf0_hz = "fast"\n', "lowpass.f0_hz", "positive number"),
-    ('[lowpass]\nf0_hz = 9000.0\nalignment = "chebyshev"\norder = 4\n', "lowpass.alignment", "allowed are butterworth"),
+    ('[lowpass]\nf0_hz = 9000.0\nalignment = "elliptic"\norder = 4\n', "lowpass.alignment", "allowed are butterworth"),
+    ('[lowpass]\nf0_hz = 9000.0\nalignment = "chebyshev"\norder = 4\n', "lowpass.ripple_db", "goes with alignment"),
+    ('[lowpass]\nf0_hz = 9000.0\nalignment = "bessel"\norder = 4\nripple_db = 0.5\n', "lowpass.ripple_db", "goes with"),
     ('[lowpass]\nf0_hz = 9000.0\nmethod = "impulse"\n', "lowpass.method", "allowed are bilinear, matched"),
     ('[lowpass]\nf0_hz = 9000.0\ncutoff = 3\n', "lowpass.cutoff", "allowed are"),
     ('[lowpass]\nf0_hz = 9000.0\norder = 2.5\n', "lowpass.order", "integer from 1 to 12"),

@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 from scipy import optimize, signal
 
-from audition import design, presets, realize
+from audition import design, realize
+from audition.plan import presets
 from audition.cli import main
 from audition.errors import BadParameter
 
@@ -272,7 +273,7 @@ def test_realised_circuit_response_is_the_nodal_response_of_its_parts(target, op
 
 
 def docstring_cost(stage, parts, z_nom):
-    """The combined error of the realize module docstring (w = 1e-5)."""
+    """The combined error of the realize.parts module docstring (w = 1e-5)."""
     f0, q, _ = stage.figures(parts)
     z = math.sqrt(parts["l_henry"] / parts["c_farad"])
     return math.log(f0 / stage.target.f0_hz) ** 2 + math.log(q / stage.target.q) ** 2 + 1e-5 * math.log(z / z_nom) ** 2
@@ -472,7 +473,7 @@ def integer_df1(ints, frac_bits, word_bits, x):
 
 # (format, sections, how far above the white-noise floor the measured floor may lie, dB). The white model is
 # an estimate: at low f0/rate successive rounding errors correlate and the floor rises a few dB (documented
-# in realize.FormatResult; measured +3.1 to +3.4 dB for the 300 Hz section below).
+# in realize.fixedpoint.FormatResult; measured +3.1 to +3.4 dB for the 300 Hz section below).
 FIXED_CASES = [("q2_14", [(2000.0, 0.9)], 1.0), ("q1_15", [(12000.0, 0.7071)], 1.0),
                ("q2_14", [(1000.0, 0.5412), (1000.0, 1.3066)], 1.0), ("q2_30", [(1000.0, 0.7071)], 1.0),
                ("q1_31", [(11000.0, 1.5)], 1.0), ("q2_14", [(1000.0, 0.54), (300.0, 0.7071)], 4.0)]
@@ -576,7 +577,7 @@ def test_c_header_parses_and_matches_the_formats():
     block = re.search(r"int16_t hiss_lp_sos_q2_14\[HISS_LP_SECTIONS\]\[5\] = \{(.*?)\};", text, re.S).group(1)
     rows = [[int(v) for v in row.split(",")] for row in re.findall(r"\{([^{}]*)\}", block)]
     assert rows == c.result("q2_14").integers.tolist()
-    assert "(-2147483647 - 1)" == realize._c_int(-2 ** 31, 32)
+    assert "(-2147483647 - 1)" == realize.cheader._c_int(-2 ** 31, 32)
 
 
 # ---------------------------------------------------------------------------

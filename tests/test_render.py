@@ -20,11 +20,12 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from audition import __version__, audiofile, design, render
+from audition import __version__, design, render, streamfilter
 from audition.cli import main
 from audition.errors import BadInputFile, OutputRefused
+from audition.io import formats, reader, writer
 
-from tests.test_audiofile import read_wav_ints, wav_bytes
+from tests.test_io import read_wav_ints, wav_bytes
 
 
 def signal_block(frames, channels, seed=0, level=0.3):
@@ -55,7 +56,7 @@ DESIGNS = {
 
 
 # one-frame blocks are slow in Python, so they run on 1 and 2 channels only
-BLOCKS_CHANNELS = [(b, c) for b in (1, 7, 1000, 4097, audiofile.BLOCK_FRAMES) for c in (1, 2, 5) if (b, c) != (1, 5)]
+BLOCKS_CHANNELS = [(b, c) for b in (1, 7, 1000, 4097, formats.BLOCK_FRAMES) for c in (1, 2, 5) if (b, c) != (1, 5)]
 
 
 @pytest.mark.parametrize("block_frames,channels", BLOCKS_CHANNELS)
@@ -66,10 +67,10 @@ def test_double_render_equals_sosfilt_of_the_whole_signal(tmp_path, block_frames
     frames = 9001 if block_frames > 1 else 700
     x = signal_block(frames, channels, seed=channels)
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, x, 48000, "DOUBLE")
+    writer.write_clip(src, x, 48000, "DOUBLE")
     d = DESIGNS[name](48000.0)
     r = render.render_file(src, out, d, block_frames=block_frames, threads=block_frames != 7)
-    y, rate = audiofile.read_clip(out)
+    y, rate = reader.read_clip(out)
     ref = scipy.signal.sosfilt(d.sos, x, axis=0)
     assert rate == 48000.0 and y.shape == x.shape and r.frames == frames
     np.testing.assert_allclose(y, ref, rtol=0, atol=1e-12)
@@ -80,7 +81,7 @@ def test_streaming_filter_carries_its_state():
     # scipy.signal.sosfilt with zi carried: the same split-chunk equality scipy's own tests use.
     d = design.lowpass(5000.0, 44100.0, order=4)
     x = signal_block(5000, 2)
-    f = render.StreamingFilter(d.sos, 2)
+    f = streamfilter.StreamingFilter(d.sos, 2)
     y = np.concatenate([f(x[:1234]), f(x[1234:1235]), f(x[1235:])])
     np.testing.assert_allclose(y, scipy.signal.sosfilt(d.sos, x, axis=0), rtol=0, atol=1e-14)
     _, zf = scipy.signal.sosfilt(d.sos, x, axis=0, zi=np.zeros((len(d.sos), 2, 2)))
@@ -91,10 +92,10 @@ def test_streaming_filter_carries_its_state():
 def test_integer_render_is_sosfilt_plus_tpdf_error(tmp_path, subtype):
     # Reference scipy.signal.sosfilt; dither +-1 LSB plus rounding keeps every sample within 1.5 LSB
     # of the exact result (LWV 1992: the total error spans (-1.5, 1.5) LSB), and its power is LSB^2/4.
-    bits = audiofile.INTEGER_BITS[subtype]
+    bits = formats.INTEGER_BITS[subtype]
     x = np.round(signal_block(40_000, 2) * 2 ** (bits - 1)) / 2 ** (bits - 1)
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, x, 48000, subtype, dither=False)
+    writer.write_clip(src, x, 48000, subtype, dither=False)
     d = DESIGNS["second order"](48000.0)
     render.render_file(src, out, d)
     ints, _ = read_wav_ints(out)  # stdlib reader, not libsndfile
@@ -108,7 +109,7 @@ def _low_level_sine_render(tmp_path, dither):
     rate, f, n = 48000, 1000, 96000
     x = (1.5 / 2 ** 15 * np.sin(2 * np.pi * f * np.arange(n) / rate))[:, None]
     src, out = tmp_path / "sine.wav", tmp_path / f"sine-{dither}.wav"
-    audiofile.write_clip(src, x, rate, "DOUBLE", overwrite=True)
+    writer.write_clip(src, x, rate, "DOUBLE", overwrite=True)
     d = design.lowpass(18000.0, float(rate), q=0.5)  # flat to well above the 9th harmonic
     render.render_file(src, out, d, subtype="PCM_16", dither=dither, seed=7, overwrite=True)
     ints, _ = read_wav_ints(out)  # stdlib reader, not libsndfile
@@ -152,7 +153,7 @@ def test_dithered_render_of_a_low_level_sine_has_no_harmonics(tmp_path):
 def test_same_seed_same_bytes_whatever_the_blocks(tmp_path):
     # "The same inputs give the same bytes" (project convention), threads or not, any block size.
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, signal_block(20_000, 2), 48000, "PCM_24", dither=False)
+    writer.write_clip(src, signal_block(20_000, 2), 48000, "PCM_24", dither=False)
     d = DESIGNS["second order"](48000.0)
     outs = []
     for i, (bf, thr, seed) in enumerate([(65536, True, 5), (333, False, 5), (4096, True, 5), (4096, True, 6)]):
@@ -167,10 +168,10 @@ def test_same_seed_same_bytes_whatever_the_blocks(tmp_path):
 def test_two_float_renders_give_identical_bytes(tmp_path, subtype):
     # "The same inputs give the same bytes" (project convention) holds for float outputs too:
     # libsndfile's time-stamped PEAK chunk is left out (RIFF chunk list checked directly).
-    from tests.test_audiofile import riff_chunk_ids
+    from tests.test_io import riff_chunk_ids
 
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, signal_block(9000, 2), 48000, subtype)
+    writer.write_clip(src, signal_block(9000, 2), 48000, subtype)
     d = DESIGNS["second order"](48000.0)
     outs = []
     for i in range(2):
@@ -209,30 +210,30 @@ def test_render_keeps_format_rate_channels_metadata_and_the_input(tmp_path, ext,
     meta = {"title": "Reel 4, side B", "artist": "Unknown band", "comment": "transfer at 19 cm/s",
             "date": "1971-03-02", "software": "capture"}
     x = signal_block(6000, channels, seed=rate)
-    audiofile.write_clip(src, x, rate, subtype, metadata=meta)
+    writer.write_clip(src, x, rate, subtype, metadata=meta)
     before = sha(src)
     d = design.lowpass(0.2 * rate, float(rate), q=0.8)
     r = render.render_file(src, out, d)
     assert sha(src) == before  # the input's bytes unchanged (SHA-256, hashlib)
-    i_in, i_out = audiofile.info(src), audiofile.info(out)
+    i_in, i_out = reader.info(src), reader.info(out)
     assert (i_out.format, i_out.subtype, i_out.rate_hz, i_out.channels, i_out.frames) == \
            (i_in.format, i_in.subtype, i_in.rate_hz, i_in.channels, i_in.frames)
     # libsndfile keeps text in WAV/RF64 (LIST INFO), FLAC (Vorbis comments), AIFF; none in W64
     assert bool(i_in.metadata) == (ext != ".w64")
     assert i_out.metadata == i_in.metadata
     # the output is the filtered input within the output's quantisation (sosfilt as reference)
-    y_in, _ = audiofile.read_clip(src)
-    y_out, _ = audiofile.read_clip(out)
-    lsb = 2.0 ** (1 - {"FLOAT": 24, "DOUBLE": 52}.get(subtype, audiofile.INTEGER_BITS.get(subtype, 0)))
+    y_in, _ = reader.read_clip(src)
+    y_out, _ = reader.read_clip(out)
+    lsb = 2.0 ** (1 - {"FLOAT": 24, "DOUBLE": 52}.get(subtype, formats.INTEGER_BITS.get(subtype, 0)))
     assert np.abs(y_out - scipy.signal.sosfilt(d.sos, y_in, axis=0)).max() <= 1.5 * lsb
     assert r.input_sha256 == before
 
 
 def test_subtype_option_changes_only_the_encoding(tmp_path):
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, signal_block(3000, 2), 48000, "PCM_16")
+    writer.write_clip(src, signal_block(3000, 2), 48000, "PCM_16")
     assert main([ "render", str(src), str(out), "--f0", "9000", "--subtype", "PCM_24", "--quiet"]) == 0
-    i = audiofile.info(out)
+    i = reader.info(out)
     assert (i.format, i.subtype, i.rate_hz, i.channels) == ("WAV", "PCM_24", 48000.0, 2)
 
 
@@ -246,8 +247,8 @@ def test_clipping_is_counted_saturated_and_reported(tmp_path, capsys):
     # independently here from it, and saturate with their own sign (never wrap).
     x = signal_block(20_000, 2, level=0.5)
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, x, 48000, "PCM_16", dither=False)
-    x, _ = audiofile.read_clip(src)
+    writer.write_clip(src, x, 48000, "PCM_16", dither=False)
+    x, _ = reader.read_clip(src)
     rc = main(["render", str(src), str(out), "--f0", "8000", "--gain-db", "6", "--no-dither", "--json"])
     assert rc == 0
     cap = capsys.readouterr()
@@ -271,7 +272,7 @@ def test_clipping_is_counted_saturated_and_reported(tmp_path, capsys):
 def test_sidecar_records_what_was_done(tmp_path, capsys):
     x = signal_block(10_000, 2)
     src, out = tmp_path / "in.flac", tmp_path / "out.flac"
-    audiofile.write_clip(src, x, 44100, "PCM_24", metadata={"title": "t"})
+    writer.write_clip(src, x, 44100, "PCM_24", metadata={"title": "t"})
     assert main(["render", str(src), str(out), "--f0", "10000", "--q", "0.6", "--seed", "42", "--json"]) == 0
     j = json.loads(capsys.readouterr().out)
     for key in ("input", "output", "sidecar", "rate", "channels", "subtype", "frames", "sections", "method",
@@ -289,7 +290,7 @@ def test_sidecar_records_what_was_done(tmp_path, capsys):
     assert when.utcoffset() == dt.timedelta(0)
     assert abs((dt.datetime.now(dt.timezone.utc) - when).total_seconds()) < 120
     # the sample peak recorded is the peak of the file written (20*log10 of max |sample|)
-    y, _ = audiofile.read_clip(out)
+    y, _ = reader.read_clip(out)
     assert rec["peak_dbfs"] == pytest.approx(20 * np.log10(np.abs(y).max()), abs=1e-9)
     assert j["peak_dbfs"] == rec["peak_dbfs"] and rec["clipped_samples"] == 0
     assert j["sections"] == rec["design"]["sections"] and j["frames"] == 10_000
@@ -311,7 +312,7 @@ def test_true_peak_of_the_output_in_json_sidecar_and_summary(tmp_path, capsys):
     x = 10 ** (-1 / 20) * np.sqrt(2) / abs(h) * np.sin(np.pi / 2 * n + np.pi / 4 - np.angle(h))
     x *= np.minimum(1.0, n / 200.0)
     x = x[:, None] * [1.0, 0.25]
-    audiofile.write_clip(src, x, 48000, "DOUBLE")  # a float input carries its crests beyond full scale
+    writer.write_clip(src, x, 48000, "DOUBLE")  # a float input carries its crests beyond full scale
     assert main(["render", str(src), str(out), "--f0", "20000", "--subtype", "PCM_24", "--json"]) == 0
     j = json.loads(capsys.readouterr().out)
     rec = json.loads(open(j["sidecar"]).read())
@@ -333,7 +334,7 @@ def test_true_peak_of_the_output_in_json_sidecar_and_summary(tmp_path, capsys):
 
 def test_summary_names_sample_peak_and_no_progress_bar_off_a_terminal(tmp_path, capsys):
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, signal_block(48000 * 6, 1), 48000, "PCM_16")  # longer than the bar's 5 s
+    writer.write_clip(src, signal_block(48000 * 6, 1), 48000, "PCM_16")  # longer than the bar's 5 s
     assert main(["render", str(src), str(out), "--f0", "8000"]) == 0
     cap = capsys.readouterr()
     assert "sample peak" in cap.out and "dBFS" in cap.out
@@ -347,7 +348,7 @@ def _render_on_a_terminal(tmp_path, *extra):
 
     src = tmp_path / "long.wav"
     if not src.exists():
-        audiofile.write_clip(src, signal_block(48000 * 8, 2), 48000, "PCM_16")  # 8 s: "longer than a few seconds"
+        writer.write_clip(src, signal_block(48000 * 8, 2), 48000, "PCM_16")  # 8 s: "longer than a few seconds"
     out = tmp_path / f"o{len(extra)}.wav"
     master, slave = pty.openpty()
     root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
@@ -392,7 +393,7 @@ def test_progress_bar_draws_on_a_terminal():
 
 def test_overwrite_replaces_output_and_sidecar(tmp_path):
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, signal_block(3000, 1), 48000)
+    writer.write_clip(src, signal_block(3000, 1), 48000)
     args = ["render", str(src), str(out), "--f0", "8000", "--quiet"]
     assert main(args) == 0
     first = out.read_bytes()
@@ -427,7 +428,7 @@ def _bad_case(tmp_path, case, monkeypatch):
         def denied(*a, **k):
             raise PermissionError(13, "Permission denied")
 
-        monkeypatch.setattr(audiofile, "open", denied, raising=False)  # root reads through chmod 000
+        monkeypatch.setattr(reader, "open", denied, raising=False)  # root reads through chmod 000
         return [str(src), str(out)], ["in.wav", "not readable"]
     if case == "unsupported encoding":
         # G.711 mu-law WAV (format tag 7): libsndfile reads it, audition does not write it
@@ -450,7 +451,7 @@ def _bad_case(tmp_path, case, monkeypatch):
         x[66_000, 1] = np.nan  # in the second block, so the first one is already written
         src.write_bytes(wav_bytes(x, 48000, 3, "<f4"))
         return [str(src), str(out)], ["in.wav", "frame 66000 channel 2", "nan"]
-    audiofile.write_clip(src, signal_block(90_000, 2), 48000, "PCM_16")
+    writer.write_clip(src, signal_block(90_000, 2), 48000, "PCM_16")
     if case == "output is input":
         return [str(src), str(tmp_path / "sub" / ".." / "in.wav")], ["in.wav", "is the input"]
     if case == "output links to input":
@@ -466,16 +467,16 @@ def _bad_case(tmp_path, case, monkeypatch):
         monkeypatch.setattr(os, "access", lambda p, m, **k: False if os.fspath(p) == str(tmp_path) else real(p, m))
         return [str(src), str(out)], ["out.wav", "not writable"]
     if case == "disk full":
-        real = audiofile.AtomicWriter._write_samples  # every write of samples to libsndfile
+        real = writer.AtomicWriter._write_samples  # every write of samples to libsndfile
         calls = []
 
         def fills_up(self, data):
             calls.append(1)
             if len(calls) == 2:
-                raise audiofile.sf.LibsndfileError(2)  # what a failed write(2) gives from libsndfile
+                raise writer.sf.LibsndfileError(2)  # what a failed write(2) gives from libsndfile
             return real(self, data)
 
-        monkeypatch.setattr(audiofile.AtomicWriter, "_write_samples", fills_up)
+        monkeypatch.setattr(writer.AtomicWriter, "_write_samples", fills_up)
         return [str(src), str(out)], ["out.wav", "disk full"]
     if case == "f0 at nyquist":
         return [str(src), str(out), "--f0", "24000"], ["in.wav", "24000", "rate/2"]
@@ -516,7 +517,7 @@ def test_bad_input_gives_one_line_exit_2_and_leaves_nothing(tmp_path, capsys, mo
 
 def test_interrupt_part_way_leaves_nothing(tmp_path):
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, signal_block(200_000, 2), 48000)
+    writer.write_clip(src, signal_block(200_000, 2), 48000)
     d = DESIGNS["second order"](48000.0)
 
     def ctrl_c(done, total):
@@ -532,7 +533,7 @@ def test_a_real_file_size_limit_part_way_leaves_nothing(tmp_path):
     # A real failed write(2), not a stand-in: the child process may not grow a file past 400 kB
     # (RLIMIT_FSIZE, POSIX), so libsndfile's writes fail part-way as on a full disk.
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, signal_block(150_000, 2), 48000)  # 600 kB
+    writer.write_clip(src, signal_block(150_000, 2), 48000)  # 600 kB
 
     def limit():
         signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
@@ -549,7 +550,7 @@ def test_a_real_file_size_limit_part_way_leaves_nothing(tmp_path):
 
 def test_design_at_another_rate_is_refused(tmp_path):
     src, out = tmp_path / "in.wav", tmp_path / "out.wav"
-    audiofile.write_clip(src, signal_block(1000, 1), 44100)
+    writer.write_clip(src, signal_block(1000, 1), 44100)
     with pytest.raises(Exception, match="design is for 48000 Hz but the file is at 44100 Hz"):
         render.render_file(src, out, design.lowpass(8000.0, 48000.0))
     assert listing(tmp_path) == ["in.wav"]
@@ -559,6 +560,6 @@ def test_library_errors_are_audition_errors(tmp_path):
     with pytest.raises(BadInputFile):
         render.render_file(tmp_path / "none.wav", tmp_path / "o.wav", design.lowpass(8000.0, 48000.0))
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, np.zeros((10, 1)), 48000)
+    writer.write_clip(src, np.zeros((10, 1)), 48000)
     with pytest.raises(OutputRefused):
         render.render_file(src, src, design.lowpass(8000.0, 48000.0), overwrite=True)

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from audition import truepeak
+from audition import annex2, truepeak
 from audition.errors import BadParameter
 
 
@@ -34,7 +34,7 @@ def upfirdn_peak(x) -> float:
     x = np.asarray(x, dtype=np.float64)
     if x.ndim == 1:
         x = x[:, None]
-    y = scipy.signal.upfirdn(truepeak.annex2_prototype(), x, up=4, axis=0)
+    y = scipy.signal.upfirdn(annex2.annex2_prototype(), x, up=4, axis=0)
     return max(float(np.abs(x).max()), float(np.abs(y).max()))
 
 
@@ -94,11 +94,11 @@ def signals():
 def test_annex2_table_is_symmetric_and_a_4x_interpolator():
     # ITU-R BS.1770-4 Annex 2 tabulates a linear-phase (symmetric) 48-tap prototype: phase 3 is
     # phase 0 reversed and phase 2 is phase 1 reversed. A mistyped tap breaks this.
-    h = truepeak.ANNEX2_PHASES
+    h = annex2.ANNEX2_PHASES
     assert h.shape == (4, 12)
     np.testing.assert_array_equal(h[3], h[0][::-1])
     np.testing.assert_array_equal(h[2], h[1][::-1])
-    proto = truepeak.annex2_prototype()
+    proto = annex2.annex2_prototype()
     np.testing.assert_array_equal(proto, proto[::-1])
     # An interpolator by 4 has a DC gain of 4 over its zero-stuffed input (common practice, no
     # source): each phase passes DC at about unity.
@@ -113,11 +113,11 @@ def test_screen_constants_bound_every_phase():
     # (the maximum of a linear function over a box is at a vertex).
     # All 2**12 vertices are tried. The screen shares one gain and one difference constant between
     # the phases (the largest of each), so it is within a few per cent of the exact worst case.
-    g, c = truepeak.SCREEN_GAIN, truepeak.SCREEN_DIFF
+    g, c = annex2.SCREEN_GAIN, annex2.SCREEN_DIFF
     signs = np.array(list(itertools.product([-1.0, 1.0], repeat=12)))  # centre, then 11 differences
     worst = 0.0
-    for k, h in enumerate(truepeak.ANNEX2_PHASES):
-        m = truepeak._CENTRES[k]
+    for k, h in enumerate(annex2.ANNEX2_PHASES):
+        m = annex2._CENTRES[k]
         # x at lags 0..11 from the centre lag m and the differences e_l = x[lag l] - x[lag l+1]
         x = np.empty((len(signs), 12))
         x[:, m] = signs[:, 0]

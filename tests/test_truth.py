@@ -12,23 +12,25 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from audition import design, plan, spectrum, synth
+import heardtruth
+from audition import design, plan, synth
+from audition.survey import bands, onepass
 from audition.weighting import power_gain
 
 NPERSEG = 8192
 
 
 @lru_cache(maxsize=None)
-def clip(hiss_dbfs=-50.0, top_hz=5000.0, hiss="tape", seed=3):
+def clip(hiss_dbfs=-50.0, top_hz=5000.0, hiss="tape", seed=3, programme="broadband"):
     return synth.synthesise(seconds=12.0, rate_hz=44100, channels=1, hiss_dbfs=hiss_dbfs, hiss=hiss,
-                            lead_in_seconds=1.5, seed=seed, programme_top_hz=top_hz)
+                            lead_in_seconds=1.5, seed=seed, programme_top_hz=top_hz, programme=programme)
 
 
 @lru_cache(maxsize=None)
 def surveyed(*key):
     """The streaming survey every command plans and predicts with."""
     c = clip(*key)
-    return spectrum.survey_array(c.mix, c.rate_hz)
+    return onepass.survey_array(c.mix, c.rate_hz)
 
 
 def floored_per_bin(s):
@@ -97,7 +99,7 @@ def test_crossover_within_a_third_octave_of_truth(key):
     # Truth: the lowest 1/3-octave band above which the programme stem's band level stays below
     # the hiss stem's (IEC 61260-1 bands, computed here from the stems' welch PSDs).
     f, pp, pn = truth_psds(*key)
-    c, bp = spectrum.band_levels(f, np.stack([pp, pn]), 3)
+    c, bp = bands.band_levels(f, np.stack([pp, pn]), 3)
     below = bp[0] < bp[1]
     true_xo = None
     for i in range(len(c)):
@@ -107,20 +109,6 @@ def test_crossover_within_a_third_octave_of_truth(key):
     s = surveyed(*key)
     assert true_xo is not None and s.crossover_hz is not None
     assert abs(math.log2(s.crossover_hz / true_xo)) <= 1 / 3 + 1e-9
-
-
-def brute_force_truth(key, designs, weighting):
-    """True gain and cut-only treble loss of every design from the stems' spectra (sums written out here)."""
-    f, pp, pn = truth_psds(*key)
-    w = power_gain(weighting, f)
-    t = f >= 2000
-    gains, losses = [], []
-    for d in designs:
-        h2 = np.abs(d.digital_response(f)) ** 2
-        gains.append(10 * math.log10((np.sum(pp * w * h2) / np.sum(pn * w * h2)) / (np.sum(pp * w) / np.sum(pn * w))))
-        lost = np.sum(pp[t] * np.maximum(0, 1 - h2[t]))
-        losses.append(-10 * math.log10(1 - lost / np.sum(pp[t])))
-    return np.array(gains), np.array(losses)
 
 
 def peak_db(d, f):
@@ -137,7 +125,7 @@ def test_refined_programme_estimate_tracks_the_stem_where_the_floor_hides_it(key
     # and never further from it than the floored one.
     f, pp, pn = truth_psds(*key)
     s = surveyed(*key)
-    c, bp = spectrum.band_levels(f, np.stack([pp, floored_per_bin(s), s.programme_psd]), 3)
+    c, bp = bands.band_levels(f, np.stack([pp, floored_per_bin(s), s.programme_psd]), 3)
     low = (c >= 200) & (c <= 2000)
     truth = bp[0] * (bp[1, low].sum() / bp[0, low].sum())
     high = c >= s.crossover_hz
@@ -148,79 +136,122 @@ def test_refined_programme_estimate_tracks_the_stem_where_the_floor_hides_it(key
     np.testing.assert_allclose(bp[2, low], bp[1, low], rtol=0.05)
 
 
-@pytest.mark.parametrize("key,budget", [(k, b) for b in (0.5, 1.0, 2.0) for k in KEYS])
-def test_plan_choice_against_brute_force_truth(key, budget):
-    # The planner issue's check: the choice's true treble loss within budget + 0.3 dB, and its true
-    # weighted SNR gain within 0.5 dB of the best true gain on the same grid within the budget.
+# --- the planner against truth from the stems (tests/heardtruth.py) ---------------------------------------
+
+def truth_bands(*key):
+    c = clip(*key)
+    start = int(c.lead_in_seconds * c.rate_hz)
+    return heardtruth.audible_bands(c.programme[start:], c.hiss, c.rate_hz)
+
+
+def true_treble_loss(key, d):
+    c = clip(*key)
+    return heardtruth.true_treble_loss(c.programme, c.hiss, d.sos, c.rate_hz, int(c.lead_in_seconds * c.rate_hz))
+
+
+DARK_KEYS = [(-50.0, 5000.0, "tape", 3, "dark"), (-44.0, 3500.0, "white", 5, "dark"),
+             (-52.0, 8000.0, "tape", 7, "dark"), (-48.0, 6000.0, "pink", 9, "dark")]
+
+
+@pytest.mark.parametrize("key,budget", [(k, b) for b in (0.5, 1.0, 2.0) for k in KEYS + DARK_KEYS[:1]])
+def test_chosen_filter_true_treble_loss_within_budget(key, budget):
+    # The planner issue's check: the choice's treble loss measured from the clean programme and the hiss
+    # separately (above) is within the budget plus 0.3 dB.
     s = surveyed(*key)
-    pl = plan.plan(s.freqs_hz, s.programme_psd, s.noise_psd, 44100, budget_db=budget, weighting="itu468")
+    pl = plan.plan(s.hearing_bands, budget_db=budget, crossover_hz=s.crossover_hz)
+    if pl.choice is None:
+        assert pl.no_filter_reason
+        return
+    assert true_treble_loss(key, pl.choice.design) <= budget + 0.3
+
+
+@pytest.mark.parametrize("key", DARK_KEYS)
+def test_cutoff_lands_near_where_the_programme_sinks_into_the_hiss(key):
+    # Where the programme sinks into the hiss at f_c (the truth above: the band above the last one where
+    # the programme's loud moments stand above the hiss), the choice's -3 dB point lies in 0.7 f_c .. 1.6 f_c.
+    # The first two clips get a filter; the last two (f_c at 12.5 and 10 kHz) get "no filter".
+    centres, _, _, _, above = truth_bands(*key)
+    f_c = centres[np.flatnonzero(above)[-1] + 1]
+    s = surveyed(*key)
+    pl = plan.plan(s.hearing_bands, crossover_hz=s.crossover_hz)
+    # where the answer is "no filter" (a crossover high in the treble leaves little heard hiss to take), the
+    # best compromise it names must still sit there
+    c = pl.choice or pl.best_compromise
+    assert c is not None, pl.no_filter_reason
+    f3 = c.design.minus3db_hz()
+    assert 0.7 * f_c <= f3 <= 1.6 * f_c, (f3, f_c, c.label)
+
+
+def test_choice_within_two_percent_of_an_exhaustive_search():
+    # Exhaustive: every shape of orders 2 and 4 on a grid twice as fine (1/48 octave), every f0 within the
+    # budget, the hiss heard evaluated on every frame (no grouping). The planner's choice, evaluated
+    # exactly, leaves no more than 2 % more heard hiss than the best found (plus a 0.005-sone floor).
+    from audition.plan import audible, shapes
+
+    key = DARK_KEYS[0]
+    s = surveyed(*key)
+    b = s.hearing_bands
+    pl = plan.plan(b, orders=(2, 4))
     assert pl.choice is not None
-    designs = plan.candidate_designs(44100, plan.DEFAULT_ORDERS)
-    gains, losses = brute_force_truth(key, designs, "itu468")
-    f = s.freqs_hz
-    allowed = np.array([peak_db(d, f) <= plan.DEFAULT_MAX_PEAK_DB + 1e-9 for d in designs])
-    best = gains[(losses <= budget) & allowed].max()
-    (g_choice,), (l_choice,) = brute_force_truth(key, [pl.choice.design], "itu468")
-    assert l_choice <= budget + 0.3
-    assert g_choice >= best - 0.5
+    sh = [x for x in shapes.shapes((2, 4)) if x.peak_db() <= plan.DEFAULT_MAX_PEAK_DB + 1e-9]
+    f0s = shapes.f0_grid(44100, points_per_octave=48)
+    pts, w_p, w_n = b.grid()
+    h2 = shapes.power_grid(sh, f0s, pts, 44100)
+    g_p, g_n = audible.band_gains(h2, w_p), audible.band_gains(h2, w_n)
+    loss, _ = audible.treble_loss(g_p, audible.audible_bands(b, 100.0, 0.0, 2000.0), b.centres_hz)
+    ok = np.argwhere(loss <= 1.0 + 1e-9)
+    prog = b.programme_frames
+    after = audible.heard_after_columns(b, prog, np.full(len(prog), 1 / len(prog)),
+                                        np.stack([g_p[i, j] for i, j in ok]), np.stack([g_n[i, j] for i, j in ok]),
+                                        100.0)
+    assert pl.choice.hiss_heard.after_sone <= after.min() * 1.02 + 0.005
 
 
-HISS_LEVELS = (-66.0, -58.0, -50.0, -42.0)
+def test_no_filter_when_the_hiss_is_not_heard():
+    # At a quiet listening level the hiss stays under the threshold of hearing: "no filter", with the reason.
+    s = surveyed(*KEYS[0])
+    pl = plan.plan(s.hearing_bands, listening_level_db=45.0)
+    assert pl.choice is None and "not heard" in pl.no_filter_reason
 
 
-def test_more_hiss_never_raises_the_cutoff():
-    # Monotonicity: the same programme under louder hiss is never cut higher. Not asserted strictly,
-    # and why is checked here against brute-force truth: the issue's choice rule (best weighted SNR
-    # gain within a treble-loss budget) is blind to the hiss level, because the SNR gain
-    # (P'p/P'n)/(Pp/Pn) and the treble loss are both ratios in which the hiss level cancels. The
-    # true best design on the grid is therefore the same at every level, and only a planner that
-    # misreads the programme (the old per-bin floor read hiss as treble) moves with the level.
-    designs = plan.candidate_designs(44100, plan.DEFAULT_ORDERS)
-    allowed = None
-    f0s, best = [], []
-    for hiss in HISS_LEVELS:
-        key = (hiss, 5000.0, "tape", 3)
-        s = surveyed(*key)
-        pl = plan.plan(s.freqs_hz, s.programme_psd, s.noise_psd, 44100, budget_db=1.0)
-        f0s.append(pl.choice.design.f0_hz)
-        gains, losses = brute_force_truth(key, designs, "itu468")
-        if allowed is None:
-            allowed = np.array([peak_db(d, s.freqs_hz) <= plan.DEFAULT_MAX_PEAK_DB + 1e-9 for d in designs])
-        ok = (losses <= 1.0) & allowed
-        i = int(np.flatnonzero(ok)[np.argmax(gains[ok])])
-        best.append((designs[i].f0_hz, gains[i]))
-    assert all(b <= a for a, b in zip(f0s, f0s[1:])), f0s
-    # The truth's own invariance (same best design, same gain within 0.05 dB, at every hiss level).
-    assert len({f0 for f0, _ in best}) == 1 and max(g for _, g in best) - min(g for _, g in best) < 0.05
-    # And the planner lands on it at every level.
-    assert f0s == [best[0][0]] * len(HISS_LEVELS)
-
-
-@pytest.mark.parametrize("key", KEYS)
-def test_looser_budget_never_worse(key):
+def test_bright_programme_gets_no_filter_or_one_within_the_budget():
+    # The broadband programme (treble bursts to 16 kHz) over quiet hiss: it stands above the hiss to the top.
+    key = (-72.0, 16000.0, "white", 11)
     s = surveyed(*key)
-    gains = [plan.plan(s.freqs_hz, s.programme_psd, s.noise_psd, 44100, budget_db=b).choice.snr_gain_db["itu468"]
-             for b in (0.25, 0.5, 1.0, 2.0, 4.0)]
-    assert all(b >= a - 1e-12 for a, b in zip(gains, gains[1:]))
+    pl = plan.plan(s.hearing_bands, crossover_hz=s.crossover_hz)
+    assert pl.choice is None or true_treble_loss(key, pl.choice.design) <= 1.0 + 0.3
+    pj = pl.to_dict()
+    assert ("choice" in pj) and ("no_filter_reason" in pj)
 
 
-def test_candidate_grid_holds_the_alignments():
-    # Alignment definitions: second-order Butterworth Q = 1/sqrt(2); fourth-order Butterworth sections
-    # Q = 0.5412 and 1.3066 (active-filter handbook tables, from memory); Bessel sections as in the
-    # table checked in test_design.py.
-    ds = plan.candidate_designs(44100, (2, 4), f0s=[5000.0])
-    qs2 = {round(d.q, 4) for d in ds if d.order == 2}
-    assert 0.7071 in qs2 and 0.5774 in qs2
-    bw4 = [d for d in ds if d.order == 4 and d.alignment == "butterworth"][0]
-    assert [round(sec.q, 4) for sec in bw4.sections] == [0.5412, 1.3066]
-    be4 = [d for d in ds if d.alignment == "bessel"][0]
-    assert [round(sec.q, 2) for sec in be4.sections] == [0.52, 0.81]
+@pytest.mark.parametrize("key", KEYS[:2])
+def test_looser_budget_never_leaves_more_hiss(key):
+    s = surveyed(*key)
+    after = []
+    for budget in (0.5, 1.0, 2.0, 4.0):
+        pl = plan.plan(s.hearing_bands, budget_db=budget)
+        best = pl.choice or pl.best_compromise
+        after.append(best.hiss_heard.after_sone if best else math.inf)
+    # equal within the 2 % near-tie rule (which may pick a lower order for a little less)
+    assert all(b <= a * 1.02 + 1e-9 for a, b in zip(after, after[1:])), after
+
+
+def test_search_holds_the_alignments():
+    # Alignment definitions: fourth-order Butterworth sections Q = 0.5412 and 1.3066 (active-filter handbook
+    # tables, from memory); Bessel sections as in the table checked in test_design.py.
+    from audition.plan import shapes
+
+    sh = shapes.shapes((2, 4))
+    assert any(x.order == 2 and abs(x.q - 1 / math.sqrt(2)) < 1e-12 for x in sh)
+    bw4 = [x for x in sh if x.order == 4 and x.alignment == "butterworth"][0]
+    assert [round(q, 4) for _, q in bw4.sections] == [0.5412, 1.3066]
+    be4 = [x for x in sh if x.order == 4 and x.alignment == "bessel"][0]
+    assert [round(q, 2) for _, q in be4.sections] == [0.52, 0.81]
 
 
 def test_quiet_hiss_warns():
     s = surveyed(-100.0, 5000.0, "tape", 3)
-    pl = plan.plan(s.freqs_hz, s.programme_psd, s.noise_psd, 44100, extra_warnings=plan.noise_warnings(s))
-    assert any("very low" in w or "gains only" in w for w in pl.warnings)
+    assert any("very low" in w for w in plan.noise_warnings(s))
 
 
 def test_hum_warns():
@@ -228,6 +259,6 @@ def test_hum_warns():
     c = clip(*KEYS[0])
     t = np.arange(len(c.mix)) / c.rate_hz
     hum = 0.003 * (np.sin(2 * np.pi * 50 * t) + 0.5 * np.sin(2 * np.pi * 150 * t))
-    s = spectrum.survey_array(c.mix + hum[:, None], c.rate_hz, noise_spans=[(0.1, 1.4)])
+    s = onepass.survey_array(c.mix + hum[:, None], c.rate_hz, noise_spans=[(0.1, 1.4)])
     assert any(w.startswith("hum") for w in plan.noise_warnings(s))
     assert not any(w.startswith("hum") for w in plan.noise_warnings(surveyed(*KEYS[0])))

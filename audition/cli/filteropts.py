@@ -14,7 +14,7 @@ import argparse
 
 from audition.errors import BadParameter
 
-ALIGNMENT_CHOICES = ("butterworth", "bessel", "linkwitz-riley")
+ALIGNMENT_CHOICES = ("butterworth", "bessel", "linkwitz-riley", "chebyshev")
 METHOD_CHOICES = ("bilinear", "matched")
 
 
@@ -37,7 +37,10 @@ def add_filter_options(parser: argparse.ArgumentParser, *, title: str = "filter"
     g.add_argument("--q", type=float, metavar="Q", help="Q of a second-order low-pass (default 0.7071, Butterworth)")
     g.add_argument("--order", type=int, default=2, metavar="N", help="filter order (default 2)")
     g.add_argument("--alignment", choices=ALIGNMENT_CHOICES,
-                   help="named alignment for --order (Bessel is normalised to -3.01 dB at f0)")
+                   help="named alignment for --order (Butterworth, Bessel and Chebyshev are -3.01 dB at f0, "
+                        "Linkwitz-Riley -6.02 dB)")
+    g.add_argument("--ripple-db", type=float, metavar="DB",
+                   help="passband ripple of the Chebyshev (type I) alignment, dB (needed with it)")
     g.add_argument("--section", action="append", type=parse_section, metavar="F0:Q",
                    help="one second-order section (repeat for a cascade); F0 alone is first order")
     g.add_argument("--gain-db", type=float, default=0.0, metavar="DB", help="passband gain H0 in dB (default 0)")
@@ -55,11 +58,13 @@ def has_filter(args: argparse.Namespace) -> bool:
 def _check_combination(args: argparse.Namespace) -> None:
     """Refuse filter options that contradict each other (their values are checked against a rate later)."""
     if not has_filter(args):
-        if args.q is not None or args.alignment is not None or args.order != 2:
-            raise BadParameter("--q, --order and --alignment need --f0 HZ")
+        if args.q is not None or args.alignment is not None or args.order != 2 or args.ripple_db is not None:
+            raise BadParameter("--q, --order, --alignment and --ripple-db need --f0 HZ")
     elif args.section:
-        if args.f0 is not None or args.q is not None or args.alignment is not None or args.order != 2:
-            raise BadParameter("--section gives the whole cascade: leave out --f0, --q, --order and --alignment")
+        if (args.f0 is not None or args.q is not None or args.alignment is not None or args.order != 2
+                or args.ripple_db is not None):
+            raise BadParameter("--section gives the whole cascade: leave out --f0, --q, --order, --alignment and "
+                               "--ripple-db")
 
 
 def design_from_args(args: argparse.Namespace, rate_hz: float):
@@ -70,15 +75,16 @@ def design_from_args(args: argparse.Namespace, rate_hz: float):
 
 
 def spec_from_options(args: argparse.Namespace):
-    """The filter options as a rate-free :class:`~audition.presets.FilterSpec`, or None when none were given."""
-    from audition.presets import FilterSpec
+    """The filter options as a rate-free :class:`~audition.plan.presets.FilterSpec`, or None when none were given."""
+    from audition.plan.presets import FilterSpec
 
     _check_combination(args)
     if not has_filter(args):
         return None
     return FilterSpec("command-line", "filter options given on the command line", f0_hz=args.f0, q=args.q,
                       order=args.order, alignment=args.alignment, sections=tuple(args.section or ()),
-                      method=args.method or "bilinear", gain_db=args.gain_db, highpass_hz=args.highpass)
+                      method=args.method or "bilinear", gain_db=args.gain_db, highpass_hz=args.highpass,
+                      ripple_db=args.ripple_db)
 
 
 def no_filter(*, auto: bool = False, what: str = "a filter") -> BadParameter:
@@ -109,7 +115,7 @@ def add_source_options(parser: argparse.ArgumentParser, *, auto_help: str | None
 def filter_source(args: argparse.Namespace):
     """Where the filter comes from: ``(spec, auto)``, at most one of them not None.
 
-    ``spec`` is a :class:`~audition.presets.FilterSpec` from the filter options,
+    ``spec`` is a :class:`~audition.plan.presets.FilterSpec` from the filter options,
     ``--plan`` or ``--preset``; ``auto`` the :class:`~audition.pipeline.PlanSettings`
     of ``--auto``. ``(None, None)`` when no filter was given: the caller decides
     whether that is an error (:func:`no_filter`).
@@ -120,7 +126,7 @@ def filter_source(args: argparse.Namespace):
         Two ways given at once, an option the chosen way ignores, or a planning
         option without --auto.
     """
-    from audition import presets
+    from audition.plan import presets
     from audition.cli.plan import PLAN_OPTIONS, settings_from_args
 
     plan_file, preset = getattr(args, "plan", None), getattr(args, "preset", None)
@@ -134,13 +140,15 @@ def filter_source(args: argparse.Namespace):
         if plan_given:
             raise BadParameter(f"--{plan_given[0].replace('_', '-')} applies to --auto only")
     if auto:
-        if args.q is not None or args.alignment is not None or args.order != 2 or args.gain_db != 0.0:
-            raise BadParameter("--auto chooses the filter: leave out --q, --order, --alignment and --gain-db "
+        if (args.q is not None or args.alignment is not None or args.order != 2 or args.gain_db != 0.0
+                or args.ripple_db is not None):
+            raise BadParameter("--auto chooses the filter: leave out --q, --order, --alignment, --ripple-db and --gain-db "
                                "(use --orders to choose the orders searched)")
         return None, settings_from_args(args)
     if plan_file or preset:
         mixed = [o for o, on in (("--q", args.q is not None), ("--order", args.order != 2),
                                  ("--alignment", args.alignment is not None), ("--gain-db", args.gain_db != 0.0),
+                                 ("--ripple-db", args.ripple_db is not None),
                                  ("--highpass", args.highpass is not None), ("--method", args.method is not None))
                  if on]
         if mixed:

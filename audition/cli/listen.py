@@ -23,7 +23,15 @@ your workplace's noise-at-work rules.
 Keys: a/b/c hear that version, tab the next, space pause, left/right 2 s back/on, 0 loop start,
 +/- volume 1 dB, h key list, q quit. --blind runs ABX trials instead: a/b/x to hear A, B or the hidden X,
 1 to answer "X is A", 2 "X is B"; at the end the number right, the one-sided binomial p-value and a JSON
-log of the session. --script plays a timed sequence without keys and exits.
+log of the session (in $XDG_DATA_HOME/audition, by default ~/.local/share/audition, or at --log).
+--script plays a timed sequence without keys and exits.
+
+Sample rates: the stream opens at the file's rate when the device takes it. A sound server (PulseAudio,
+PipeWire) takes any rate and converts to the rate its output runs at with its own converter; PulseAudio
+16's default one (speex-float-1), going from 44.1 to 48 kHz, takes about 2.5 dB at 18 kHz and 8 dB at
+20 kHz off every version, the original included. --device-rate HZ (the server's rate) converts the region here
+instead, flat to 20 kHz, before playback. A device that refuses the file's rate gets its own default rate,
+converted here the same way.
 Needs PortAudio (Debian/Ubuntu: apt-get install libportaudio2)."""
 
 
@@ -44,6 +52,9 @@ def add_parser(sub) -> None:
                      help="play every version at its own level (the louder one will tend to sound better)")
     reg.add_argument("--device", metavar="NAME", help="output device: index or part of its name; "
                      "'list' lists the output devices and exits")
+    reg.add_argument("--device-rate", type=float, metavar="HZ",
+                     help="open the device at HZ, converting the region here first when the file's rate differs "
+                     "(default: the file's rate; see Sample rates above)")
     reg.add_argument("--block", type=int, default=512, metavar="FRAMES",
                      help="frames per block (default 512, 11.6 ms at 44.1 kHz): a switch lands within one block")
     reg.add_argument("--volume", type=float, default=0.0, metavar="DB",
@@ -59,20 +70,21 @@ def add_parser(sub) -> None:
     bl.add_argument("--trials", type=int, default=16, metavar="N", help="number of trials (default 16)")
     bl.add_argument("--seed", type=int, metavar="N", help="seed of the draw of X (default: from the clock; "
                     "it is written to the log)")
-    bl.add_argument("--log", metavar="FILE.json", help="session log (default listen-abx-<UTC time>.json here)")
+    bl.add_argument("--log", metavar="FILE.json", help="session log (default: listen-abx-<UTC time>.json in "
+                    "$XDG_DATA_HOME/audition, i.e. ~/.local/share/audition unless XDG_DATA_HOME is set)")
     p.set_defaults(run=run)
 
 
 def describe_design(d) -> str:
     from audition.cli.presets import describe
-    from audition.presets import FilterSpec
+    from audition.plan.presets import FilterSpec
 
     return "low-pass " + describe(FilterSpec.from_design(d, "b"))
 
 
 def design_b(args, rate_hz):
     """(name, design) of B from the filter options, --plan or --preset."""
-    from audition import presets
+    from audition.plan import presets
     from audition.cli.filteropts import filter_source, no_filter
 
     spec, _ = filter_source(args)
@@ -88,7 +100,8 @@ def design_b(args, rate_hz):
 
 def design_against(text: str, args, rate_hz):
     """(name, design) of C from ``--against``: F0[:Q], a plan file or a preset name."""
-    from audition import design, presets
+    from audition import design
+    from audition.plan import presets
     from audition.errors import BadParameter
 
     t = text.strip()
@@ -127,6 +140,8 @@ def check_options(args) -> None:
         raise BadParameter(f"--ramp-seconds {args.ramp_seconds:g}: must lie in 0 ... 30 s")
     if not 1 <= args.trials <= 1000:
         raise BadParameter(f"--trials {args.trials}: must be 1 ... 1000")
+    if args.device_rate is not None and not 8000.0 <= args.device_rate <= 768000.0:
+        raise BadParameter(f"--device-rate {args.device_rate:g}: must lie in 8,000 ... 768,000 Hz")
 
 
 def list_devices(sd) -> int:
@@ -145,11 +160,19 @@ def list_devices(sd) -> int:
     return 0
 
 
+def output_note(region) -> str:
+    """How the region reaches the device: the stream's rate and who converts it."""
+    if region.converted:
+        return f"stream {region.rate_hz:g} Hz, converted here from {region.file_rate_hz:g} Hz"
+    return f"stream {region.rate_hz:g} Hz, the file's rate"
+
+
 def summary_lines(region, mixer, device) -> list[str]:
     from audition.listen.screen import CAUTION
 
     lines = [f"{region.path}: loop {region.start_seconds:.3f} s + {region.seconds:.3f} s, "
-             f"{region.rate_hz:g} Hz, {region.channels} ch -> device {device['index']} ({device['name']})",
+             f"{region.file_rate_hz:g} Hz, {region.channels} ch -> device {device['index']} ({device['name']}), "
+             f"{output_note(region)}",
              f"  block {mixer.max_block} frames = {mixer.block_ms:.1f} ms, crossfade {mixer.fade_ms:.1f} ms, "
              f"limiter ceiling {mixer.ceiling_dbfs:g} dBFS"]
     for v in region.versions:
@@ -159,10 +182,22 @@ def summary_lines(region, mixer, device) -> list[str]:
     return lines
 
 
+def data_folder() -> str:
+    """The per-user folder for audition's own records: $XDG_DATA_HOME/audition, else ~/.local/share/audition.
+
+    The XDG Base Directory Specification: a relative or empty XDG_DATA_HOME is ignored.
+    """
+    base = os.environ.get("XDG_DATA_HOME", "")
+    if not os.path.isabs(base):
+        base = os.path.join(os.path.expanduser("~"), ".local", "share")
+    return os.path.join(base, "audition")
+
+
 def default_log_name() -> str:
     import datetime as dt
 
-    return "listen-abx-" + dt.datetime.now(dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ") + ".json"
+    return os.path.join(data_folder(),
+                        "listen-abx-" + dt.datetime.now(dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ") + ".json")
 
 
 def write_log(path: str, data: dict) -> None:
@@ -173,6 +208,7 @@ def write_log(path: str, data: dict) -> None:
 
     folder = os.path.dirname(os.path.abspath(path))
     try:
+        os.makedirs(folder, exist_ok=True)
         fd, tmp = tempfile.mkstemp(prefix=".listen-", suffix=".json", dir=folder)
         with os.fdopen(fd, "w") as f:
             json.dump(data, f, indent=2)
@@ -182,12 +218,17 @@ def write_log(path: str, data: dict) -> None:
         raise OutputRefused(f"{path!r}: cannot write the session log ({exc.strerror})") from None
 
 
+def has_terminal() -> bool:
+    """True when keys can be read and the screen drawn (standard input and output are a terminal)."""
+    return sys.stdin.isatty() and sys.stdout.isatty()
+
+
 def run(args) -> int:
-    from audition import audiofile
     from audition.errors import OutputRefused
-    from audition.listen.device import check_block, load_sounddevice, pick_output
+    from audition.io import reader
+    from audition.listen.device import check_block, load_sounddevice, output_rate, pick_output
     from audition.listen.engine import Mixer, parse_script, script_schedule
-    from audition.listen.sources import build_region
+    from audition.listen.sources import build_region, region_frames_for
 
     if args.device is not None and args.device.strip().lower() == "list":
         return list_devices(load_sounddevice())
@@ -196,7 +237,7 @@ def run(args) -> int:
     # The sound stack first: no point rendering when nothing can be heard.
     sd = load_sounddevice()
     device = pick_output(sd, args.device)
-    info = audiofile.info(args.input)
+    info = reader.info(args.input)
     candidates = [("original", None), design_b(args, info.rate_hz)]
     if args.against:
         candidates.append(design_against(args.against, args, info.rate_hz))
@@ -204,12 +245,24 @@ def run(args) -> int:
         candidates = candidates[1:]  # the two candidates against each other
     log_path = None
     if args.blind:
-        log_path = args.log or default_log_name()
+        from audition.listen.abx import too_few_trials
+
+        few = too_few_trials(args.trials)
+        if few:
+            print(f"warning: --trials {args.trials}: {few}", file=sys.stderr, flush=True)
+        log_path = os.path.abspath(args.log or default_log_name())
         if os.path.exists(log_path):
             raise OutputRefused(f"{log_path!r}: exists; give another --log")
+    region_frames_for(info, args.start, args.end)  # a bad region is said before anything else
+    if not args.script and not has_terminal():
+        from audition.errors import BadParameter
+
+        raise BadParameter("the listening screen needs a terminal for its keys; use --script SEQUENCE to play "
+                           "without one")
+    out_channels = max(info.channels, min(2, device["channels"]))
+    rate_hz = output_rate(sd, device, info.rate_hz, out_channels, args.device_rate)
     region = build_region(args.input, candidates, start_seconds=args.start, end_seconds=args.end,
-                          level_match=args.level_match, labels="ABC")
-    out_channels = max(region.channels, min(2, device["channels"]))
+                          level_match=args.level_match, labels="ABC", out_rate_hz=rate_hz)
     common = dict(region_frames=region.region_frames, out_channels=out_channels, ceiling_dbfs=args.ceiling,
                   ramp_seconds=args.ramp_seconds, max_block=args.block)
     sources = [v.samples for v in region.versions]
@@ -230,11 +283,6 @@ def run(args) -> int:
         print(f"played {mixer.clock / region.rate_hz:.3f} s in {mixer.blocks} blocks; underruns: {mixer.underruns}")
         return 0
 
-    if not (sys.stdin.isatty() and sys.stdout.isatty()):
-        from audition.errors import BadParameter
-
-        raise BadParameter("the listening screen needs a terminal for its keys; use --script SEQUENCE to play "
-                           "without one")
     from audition.listen.abx import AbxSession
     from audition.listen.screen import Screen, run_terminal
 
@@ -246,21 +294,28 @@ def run(args) -> int:
 
         seed = args.seed if args.seed is not None else int(time.time()) % (2 ** 31)
         settings = {"input": os.path.abspath(args.input), "start_seconds": region.start_seconds,
-                    "region_seconds": region.seconds, "rate_hz": region.rate_hz, "channels": region.channels,
+                    "region_seconds": region.seconds, "rate_hz": region.file_rate_hz,
+                    "stream_rate_hz": region.rate_hz, "converted_here": region.converted,
+                    "channels": region.channels,
                     "level_matched": region.level_matched, "versions": [v.to_dict() for v in region.versions],
                     "device": device["name"], "block_frames": mixer.max_block, "crossfade_ms": mixer.fade_ms,
                     "ceiling_dbfs": mixer.ceiling_dbfs}
         abx = AbxSession(args.trials, seed, settings)
-    screen = Screen(region, mixer, abx, device_name=f"{device['index']} {device['name']}")
+    screen = Screen(region, mixer, abx, device_name=f"{device['index']} {device['name']}",
+                    output_note=output_note(region), log_path=log_path)
     try:
         run_terminal(sd, screen, device)
     finally:
         if abx is not None:
             log = abx.to_dict()
             log["completed"] = abx.done
+            log["underruns"] = mixer.underruns
             write_log(log_path, log)
     if abx is not None:
         print(f"blind test: {abx.verdict()}")
-        print(f"session log: {log_path}")
+        few = too_few_trials(abx.trials)
+        if few:
+            print(f"warning: {few}")
+        print(f"session log written to {log_path}")
     print(f"underruns: {mixer.underruns}")
     return 0

@@ -23,9 +23,14 @@ def add_noise_options(parser: argparse.ArgumentParser) -> None:
                    help="a stretch of hiss alone, in seconds (repeatable), e.g. tape leader before the music")
     g.add_argument("--noise-clip", metavar="FILE", help="a separate noise-only recording (leader, run-out groove)")
     g.add_argument("--margin-db", type=float, default=0.0, metavar="DB",
-                   help="crossover margin: the programme must sit this far below the hiss (default 0)")
+                   help="the programme counts as heard in a band where it stands this far above the hiss "
+                        "(default 0); the crossover likewise")
     g.add_argument("--treble-from", type=float, default=2000.0, metavar="HZ",
-                   help="lower edge of the treble band whose loss is counted (default 2000 Hz)")
+                   help="lowest band whose cut counts as treble loss (default 2000 Hz)")
+    g.add_argument("--listening-level", type=float, default=100.0, metavar="DB",
+                   help="sound pressure level (dB SPL) at which a full-scale sine would play: what is heard "
+                        "depends on it (default 100, so programme near -20 dBFS plays near 80 dB SPL; common "
+                        "practice for calibrated monitoring, not a standard)")
 
 
 def noise_from_args(args):
@@ -35,13 +40,15 @@ def noise_from_args(args):
     spans = getattr(args, "noise_span", None)
     return NoiseReference(spans=None if not spans else tuple(tuple(s) for s in spans),
                           clip=getattr(args, "noise_clip", None) or None,
-                          margin_db=getattr(args, "margin_db", 0.0), treble_from_hz=getattr(args, "treble_from", 2000.0))
+                          margin_db=getattr(args, "margin_db", 0.0), treble_from_hz=getattr(args, "treble_from", 2000.0),
+                          listening_level_db=getattr(args, "listening_level", 100.0))
 
 
 def gave_noise(args) -> bool:
     """True when any noise-reference option differs from its default."""
     return bool(getattr(args, "noise_span", None) or getattr(args, "noise_clip", None)
-                or getattr(args, "margin_db", 0.0) != 0.0 or getattr(args, "treble_from", 2000.0) != 2000.0)
+                or getattr(args, "margin_db", 0.0) != 0.0 or getattr(args, "treble_from", 2000.0) != 2000.0
+                or getattr(args, "listening_level", 100.0) != 100.0)
 
 
 def survey_file(path, args, *, name: str | None = None):

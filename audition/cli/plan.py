@@ -6,7 +6,8 @@ import json
 
 from audition.cli.noiseopts import add_noise_options
 
-HELP = "suggest a hiss filter from the survey: the best SNR gain within a treble-loss budget"
+HELP = ("suggest a hiss filter from the survey: the one that takes away the most hiss heard while cutting "
+        "audible programme by no more than a budget, or none")
 
 
 def parse_orders(text: str) -> tuple[int, ...]:
@@ -22,7 +23,7 @@ def parse_orders(text: str) -> tuple[int, ...]:
 
 
 #: The planning options that only mean something to a planner (--method and --highpass are the filter's own).
-PLAN_OPTIONS = ("budget_db", "weighting", "orders", "max_peak_db")
+PLAN_OPTIONS = ("budget_db", "objective", "weighting", "orders", "max_peak_db")
 
 
 def add_plan_options(p, *, with_auto: bool = False) -> None:
@@ -39,13 +40,18 @@ def add_plan_options(p, *, with_auto: bool = False) -> None:
         return None if with_auto else value
 
     g.add_argument("--budget-db", type=float, default=default(1.0), metavar="B",
-                   help="most programme treble (dB) the filter may take (default 1.0)")
+                   help="treble-loss budget: the largest cut (dB) the filter may make in any one-third-octave band "
+                        "where the programme is heard (default 1.0)")
+    g.add_argument("--objective", choices=("heard", "snr"), default=default("heard"),
+                   help="heard: take away the most hiss heard over the programme (default); snr: the best "
+                        "weighted SNR gain (see --weighting)")
     g.add_argument("--weighting", choices=("flat", "a", "itu468"), default=default("itu468"),
-                   help="the weighting whose SNR gain is maximised (default itu468)")
-    g.add_argument("--orders", type=parse_orders, default=default((2, 4)), metavar="2,4",
-                   help="filter orders to search (default 2,4)")
+                   help="the weighting of --objective snr (default itu468)")
+    g.add_argument("--orders", type=parse_orders, default=default((1, 2, 3, 4, 5, 6, 7, 8)), metavar="1,2,4",
+                   help="filter orders to search (default 1 to 8)")
     g.add_argument("--max-peak-db", type=float, default=default(1.5), metavar="DB",
-                   help="largest resonant peak a candidate may have (default 1.5 dB: Q up to 1.0 at order 2)")
+                   help="largest resonant peak or passband ripple a candidate may have (default 1.5 dB: Q up to "
+                        "1.0 at order 2)")
     if not with_auto:
         g.add_argument("--method", choices=("bilinear", "matched"), default="bilinear",
                        help="digitising method of the candidates (default bilinear)")
@@ -75,7 +81,7 @@ def settings_from_args(args):
 
     return PlanSettings(budget_db=pick("budget_db"), weighting=pick("weighting"), orders=tuple(pick("orders")),
                         method=pick("method"), max_peak_db=pick("max_peak_db"),
-                        highpass_hz=getattr(args, "highpass", None))
+                        highpass_hz=getattr(args, "highpass", None), objective=pick("objective"))
 
 
 def make_plan(survey, args):
@@ -88,64 +94,83 @@ def make_plan(survey, args):
 
 def save_plan(pl, survey, path, source: str, overwrite: bool = True) -> None:
     """Write the choice as a plan file (atomically)."""
-    from audition import presets, report
+    from audition import report
+    from audition.plan import presets
     from audition.errors import AuditionError
 
     if pl.choice is None:
-        raise AuditionError(f"{path}: not written: no candidate meets the budget")
+        raise AuditionError(f"{path}: not written: the plan is no filter ({pl.no_filter_reason})")
     import os
 
     name = os.path.splitext(os.path.basename(path))[0]
     spec = presets.FilterSpec.from_design(pl.choice.design, name, pl.explanation)
+    pr = pl.choice.predicted()
     text = spec.to_toml(
-        predicted={"weighting": pl.weighting, "budget_db": pl.budget_db,
-                   "snr_gain_db": pl.choice.snr_gain_db, "treble_loss_db": pl.choice.treble_loss_db},
+        predicted={"objective": pl.objective, "budget_db": pl.budget_db, "listening_level_db": pl.listening_level_db,
+                   "treble_loss_db": pr["treble_loss_db"], "treble_loss_hz": pr["treble_loss_hz"],
+                   "hiss_heard_before_sone": pr["hiss_heard"]["before_sone"],
+                   "hiss_heard_after_sone": pr["hiss_heard"]["after_sone"],
+                   "hiss_heard_reduction_pct": pr["hiss_heard"]["reduction_pct"],
+                   "snr_gain_db": pr["snr_gain_db"]},
         survey={"input": source, "crossover_hz": survey.crossover_hz, "noise_source": survey.noise_source,
                 "noise_spans": [list(s) for s in survey.spans[:50]], "rate_hz": survey.rate_hz})
     report.write(path, text)
 
 
+def wrap(text: str, indent: str = "  ") -> str:
+    """Wrap a paragraph to the terminal's width (at most 100 columns), never inside a word."""
+    import shutil
+    import textwrap
+
+    width = max(40, min(100, shutil.get_terminal_size((100, 24)).columns))
+    return textwrap.fill(text, width=width, initial_indent=indent, subsequent_indent=indent,
+                         break_long_words=False, break_on_hyphens=False)
+
+
+def _row(c, pl) -> str:
+    h = c.hiss_heard
+    at = "" if c.treble_loss_hz is None else f" at {c.treble_loss_hz / 1000:.1f} kHz"
+    snr = c.snr_gain_db.get(pl.weighting)
+    return (f"  {c.label:<48.48}{c.treble_loss_db:>6.2f} dB{at:<12}{h.reduction_pct:>5.0f} %"
+            f"{'' if snr is None else f'{snr:>8.2f} dB':>11}")
+
+
 def format_plan(path, pl) -> str:
-    w = pl.weighting
-    lines = [f"{path}: plan for the best {w}-weighted SNR gain within {pl.budget_db:g} dB of treble loss "
-             f"({pl.searched} candidates searched)"]
+    what = ("the filter that takes away the most hiss heard" if pl.objective == "heard"
+            else f"the best {pl.weighting}-weighted SNR gain")
+    lines = [f"{path}: plan for {what} within {pl.budget_db:g} dB of treble loss, listening at "
+             f"{pl.listening_level_db:g} dB SPL for a full-scale sine ({pl.searched:,} candidates searched)", ""]
     if pl.choice is not None:
-        c = pl.choice
-        lines += ["", f"  choice: {c.label}", "", "  " + pl.explanation, ""]
-    lines.append(f"  {'trade-off (best of each loss)':<36}{'SNR gain ' + w:>16}{'treble loss':>14}")
-    shown = _near(pl)
-    for cand in shown:
-        mark = "  <- choice" if pl.choice is not None and cand.design is pl.choice.design else ""
-        lines.append(f"  {cand.label:<36}{cand.snr_gain_db[w]:>13.2f} dB{cand.treble_loss_db:>11.2f} dB{mark}")
+        lines.append(f"  choice: {pl.choice.label}")
+    else:
+        lines.append("  choice: no filter")
+    lines += ["", wrap(pl.explanation), ""]
+    lines.append(f"  {'trade-off (best for each budget)':<48}{'treble loss':<20}{'hiss':>7}"
+                 f"{'SNR ' + pl.weighting:>11}")
+    lines.append(f"  {'':<48}{'(largest cut, band)':<20}{'heard':>7}{'(dB)':>11}")
+    shown = list(pl.front)
+    for c in shown:
+        mark = "  <- choice" if pl.choice is not None and c.label == pl.choice.label else ""
+        lines.append(_row(c, pl) + mark)
+    if pl.choice is not None and not any(c.label == pl.choice.label for c in shown):
+        lines.append(_row(pl.choice, pl) + "  <- choice")
+    lines.append("  (hiss heard: the share of the heard hiss taken away, ISO 532-1 loudness over every frame)")
     for msg in pl.warnings:
-        lines.append(f"  warning: {msg}")
+        lines.append(wrap(f"warning: {msg}"))
     return "\n".join(lines)
 
 
-def _near(pl, n: int = 7):
-    """Up to n points of the Pareto front around the choice (or its gentle end)."""
-    front = list(pl.front)
-    if not front:
-        return []
-    at = 0
-    if pl.choice is not None:
-        losses = [c.treble_loss_db for c in front]
-        at = min(range(len(front)), key=lambda i: abs(losses[i] - pl.choice.treble_loss_db))
-        front[at] = pl.choice
-    lo = max(0, at - n // 2)
-    return front[lo:lo + n]
-
-
 def run(args) -> int:
-    from audition import audiofile
     from audition.cli.noiseopts import survey_file
+    from audition.io import reader, writer
 
-    audiofile.info(args.input)
+    reader.info(args.input)
     if args.save:
-        audiofile.check_output_path(args.save, inputs=(args.input,), overwrite=True)
+        writer.check_output_path(args.save, inputs=(args.input,), overwrite=True)
     survey = survey_file(args.input, args)
     pl = make_plan(survey, args)
-    if args.save:
+    saved = bool(args.save) and pl.choice is not None
+    if saved:
         save_plan(pl, survey, args.save, str(args.input))
     if args.plot:
         from audition.plots.plan import plot_plan
@@ -157,7 +182,11 @@ def run(args) -> int:
         print(json.dumps(out, indent=2))
     else:
         print(format_plan(args.input, pl))
-        for what, p in (("plan", args.save), ("plot", args.plot)):
+        for what, p in (("plan", args.save if saved else None), ("plot", args.plot)):
             if p:
                 print(f"{what} written to {p}")
+    if args.save and not saved:
+        import sys
+
+        print(f"audition plan: {args.save}: no plan file written: the answer is no filter", file=sys.stderr)
     return 0

@@ -27,7 +27,7 @@ def describe(spec) -> str:
 
 
 def run(args) -> int:
-    from audition import presets
+    from audition.plan import presets
 
     found = presets.available()
     if args.json:

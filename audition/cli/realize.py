@@ -53,7 +53,7 @@ def add_parser(sub) -> None:
 
 
 def _design(args, rate_hz):
-    from audition import presets
+    from audition.plan import presets
     from audition.cli.filteropts import filter_source, no_filter
 
     spec, _ = filter_source(args)
@@ -278,8 +278,9 @@ def format_coefficients(r: dict) -> str:
 
 
 def run(args) -> int:
-    from audition import __version__, audiofile, realize
+    from audition import __version__, realize
     from audition.design import check_rate
+    from audition.io import sidecar
 
     _check(args)
     check_rate(args.rate)
@@ -296,7 +297,7 @@ def run(args) -> int:
 
             plot_coefficients(coeffs, args.plot)
         if header is not None:
-            audiofile.write_text(args.header, header, "header")
+            sidecar.write_text(args.header, header, "header")
         if args.json:
             print(json.dumps(report, indent=2, allow_nan=False))
         else:

@@ -11,7 +11,7 @@ from audition.cli.filteropts import add_filter_options, add_source_options, filt
 from audition.cli.noiseopts import add_noise_options
 
 HELP = "filter a sound file into a new one (the original is never touched), with a JSON sidecar record"
-#: Kept equal to audition.audiofile.OUTPUT_SUBTYPES (tests check it) so the help needs no soundfile import.
+#: Kept equal to audition.io.formats.OUTPUT_SUBTYPES (tests check it) so the help needs no soundfile import.
 SUBTYPES = ("PCM_S8", "PCM_U8", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE")
 #: Files shorter than this render without a progress bar (it would only flicker).
 PROGRESS_MIN_SECONDS = 5.0
@@ -100,6 +100,8 @@ def format_summary(j: dict) -> str:
 
 def _figures_lines(j: dict) -> list[str]:
     lines = []
+    if j.get("plan") and j["plan"].get("choice"):
+        lines += ["", f"  f0 chosen by --auto: {j['plan']['choice']['label']}"]
     if j.get("plan") and j["plan"].get("explanation"):
         lines += ["", "  chosen by --auto: " + j["plan"]["explanation"]]
     pr, me = j.get("predicted"), j.get("measured")
@@ -110,11 +112,18 @@ def _figures_lines(j: dict) -> list[str]:
             for w, label in names.items():
                 a, b = pr.get(key, {}).get(w), me.get(key, {}).get(w)
                 lines.append(f"  {what + ', ' + label:<42}{_db(a):>11}{_db(b):>11}")
-        lines.append(f"  {'treble loss above %g Hz' % pr['treble_from_hz']:<42}{_db(pr['treble_loss_db']):>11}"
-                     f"{_db(me['treble_loss_db']):>11}")
+        lines.append(f"  {'treble loss (largest cut where heard)':<42}{_db(pr['treble_loss_db']):>11}"
+                     f"{_db(me.get('treble_loss_db')):>11}")
+        hp, hm = pr.get("hiss_heard") or {}, me.get("hiss_heard") or {}
+        lines.append(f"  {'hiss heard after the filter (sone)':<42}{_sone(hp.get('after_sone')):>11}"
+                     f"{_sone(hm.get('after_sone')):>11}")
     if j.get("report"):
         lines += ["", f"  report: {j['report']}"]
     return lines
+
+
+def _sone(v) -> str:
+    return "-" if v is None else f"{v:.2f}"
 
 
 def _db(v) -> str:
@@ -122,11 +131,11 @@ def _db(v) -> str:
 
 
 def run(args) -> int:
-    from audition import audiofile
     from audition.cli.noiseopts import gave_noise, noise_from_args
+    from audition.io import reader
     from audition.pipeline import render_job
 
-    info = audiofile.info(args.input)
+    info = reader.info(args.input)
     spec, auto = filter_source(args)
     if spec is None and auto is None:
         raise no_filter(auto=True)
@@ -143,6 +152,14 @@ def run(args) -> int:
             bar.close()
     for msg in j.get("warnings") or ():
         print(f"audition render: warning: {msg}", file=sys.stderr)
+    if j.get("output") is None:
+        # --auto answered "no filter": nothing rendered, one clear line (and the report, if asked)
+        if args.json:
+            print(json.dumps(j, indent=2))
+        else:
+            print(f"{args.input}: no filter: {j['no_filter_reason']}; nothing written to {args.output}"
+                  + (f" (report: {j['report']})" if j.get("report") else ""))
+        return 0
     tp = j.get("true_peak_dbtp")
     if j["clipped_samples"]:
         trim = math.ceil(j["trim_db"] * 10.0 + 1e-9) / 10.0

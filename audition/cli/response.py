@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 
-from audition.cli.filteropts import add_filter_options
+from audition.cli.filteropts import add_filter_options, add_source_options
 
 HELP = "show a filter design: digital sections, deviation from the analog response, figures"
 
@@ -12,6 +12,7 @@ HELP = "show a filter design: digital sections, deviation from the analog respon
 def add_parser(sub) -> None:
     p = sub.add_parser("response", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ".")
     add_filter_options(p)
+    add_source_options(p)
     p.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--plot", metavar="FILE.png", help="draw magnitude and phase, analog against digital")
@@ -23,11 +24,14 @@ def report(d) -> dict:
     from audition.design import METHODS
 
     fig = d.figures()
+    lows = [s for s in d.sections if s.kind == "lowpass"]
     out = {
         "rate": d.rate_hz,
         "method": d.method,
         "f0_hz": d.f0_hz,
-        "q": d.q,
+        # one section's Q is the design's; a cascade has no single Q (its sections' are listed)
+        "q": d.q if len(lows) == 1 else None,
+        "ripple_db": d.ripple_db,
         "order": d.order,
         "alignment": d.alignment,
         "highpass_hz": d.highpass_hz,
@@ -62,7 +66,7 @@ def format_table(r: dict) -> str:
 
     n_low = sum(a["kind"] == "lowpass" for a in r["analog_sections"])
     if r["alignment"]:
-        what = f"order {r['order']} {r['alignment']}"
+        what = f"order {r['order']} {r['alignment']}" + (f", {r['ripple_db']:g} dB ripple" if r.get("ripple_db") else "")
     elif n_low > 1:
         what = f"order {r['order']}, a cascade of the sections below"
     else:
@@ -93,14 +97,15 @@ def format_table(r: dict) -> str:
 
 
 def run(args) -> int:
-    from audition.cli.filteropts import design_from_args
+    from audition.cli.filteropts import filter_source, no_filter
     from audition.design import check_rate
-    from audition.errors import BadParameter
+    from audition.plan import presets
 
     check_rate(args.rate)
-    d = design_from_args(args, args.rate)
-    if d is None:
-        raise BadParameter("give a filter: --f0 HZ [--q Q | --order N --alignment NAME] or --section F0:Q ...")
+    spec, _ = filter_source(args)
+    if spec is None:
+        raise no_filter()
+    d = presets.check_design(spec, args.rate)
     r = report(d)
     if args.plot:
         from audition.plots.response import plot_response

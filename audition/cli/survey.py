@@ -8,7 +8,8 @@ import sys
 from audition.cli.filteropts import add_filter_options
 from audition.cli.noiseopts import add_noise_options
 
-HELP = "survey the noise floor against the programme; predict a filter's SNR gain and treble loss"
+HELP = ("survey the noise floor against the programme and where the hiss is heard; predict what a filter "
+        "takes from the programme and from the hiss heard")
 WEIGHTING_NOTE = ("A-weighting (IEC 61672-1) and ITU-R BS.468-4 weighting are applied to the power spectrum "
                   "(RMS detection, not the 468 quasi-peak meter); levels are dBFS as 20*log10(rms), "
                   "a full-scale sine reading -3.01 dBFS")
@@ -24,19 +25,32 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
-def survey_report(s, design=None, treble_from_hz: float = 2000.0) -> dict:
-    """The JSON object of a survey (and of a prediction when a design is given)."""
-    from audition import measure
+def survey_report(s, design=None, noise=None) -> dict:
+    """The JSON object of a survey (and of a prediction when a design is given).
+
+    ``noise`` is the :class:`~audition.pipeline.NoiseReference` the survey was made with (its
+    listening level, margin and treble edge judge what is heard).
+    """
+    from audition import measure, pipeline
+    from audition.plan.audible import audible_bands
+    from audition.plan.choose import judge_nothing
     from audition.weighting import WEIGHTINGS
 
+    noise = noise or pipeline.NoiseReference()
     d = s.to_dict()
     d["noise"]["rms_dbfs"] = measure.weighted_levels(s.freqs_hz, s.noise_psd, WEIGHTINGS)
     d["programme"]["rms_dbfs"] = measure.weighted_levels(s.freqs_hz, s.programme_psd, WEIGHTINGS)
+    d["listening_level_db"] = noise.listening_level_db
+    bands = s.hearing_bands
+    heard = judge_nothing(bands, noise.listening_level_db)
+    audible = audible_bands(bands, noise.listening_level_db, noise.margin_db, 0.0)
+    d["hiss_heard"] = {"sone": heard.before_sone, "bands_hz": [float(f) for f in heard.bands_hz],
+                       "audible_share": [float(x) for x in heard.share_before]}
+    d["programme"]["heard_bands_hz"] = [float(f) for f in bands.centres_hz[audible]]
     d["weighting_note"] = WEIGHTING_NOTE
     d["warnings"] = noise_warnings(s)
     if design is not None:
-        d["prediction"] = measure.predict(s.freqs_hz, s.programme_psd, s.noise_psd, design,
-                                          treble_from_hz=treble_from_hz).to_dict()
+        d["prediction"] = pipeline.predict(s, design, noise)
         d["filter"] = design.to_dict()
     return d
 
@@ -87,16 +101,22 @@ def format_report(path, r: dict) -> str:
          f"{r['crossover_hz']:,.0f} Hz (1/{r['band_fraction']}-octave bands, margin {r['margin_db']:g} dB)"
          if r["crossover_hz"] else "  the programme stays above the hiss in every band"),
     ]
+    lines += _heard_lines(r)
     if "prediction" in r:
         p = r["prediction"]
         g = p["snr_gain_db"]
+        h = p["hiss_heard"]
+        cut = (f"{p['treble_loss_db']:.2f} dB, the largest cut where the programme is heard"
+               + (f" (in the {p['treble_loss_hz'] / 1000:.1f} kHz band)" if p["treble_loss_hz"] else ""))
         lines += [
             "",
             "  with the filter:",
-            f"    SNR gain (dB)         flat {g['flat']:+.2f}   A {g['a']:+.2f}   ITU-468 {g['itu468']:+.2f}",
-            f"    hiss after (dBFS)     flat {p['noise_after_dbfs']['flat']:.1f}   A {p['noise_after_dbfs']['a']:.1f}"
-            f"   ITU-468 {p['noise_after_dbfs']['itu468']:.1f}",
-            f"    treble loss           {p['treble_loss_db']:.2f} dB of programme above {p['treble_from_hz']:,.0f} Hz",
+            f"    treble loss           {cut}",
+            f"    hiss heard            {h['before_sone']:.2f} -> {h['after_sone']:.2f} sone "
+            f"({h['reduction_pct']:.0f} % less; ISO 532-1 loudness the hiss adds, mean over the frames)",
+            f"    SNR gain (dB)         flat {_signed(g['flat'])}   A {_signed(g['a'])}   ITU-468 {_signed(g['itu468'])}",
+            f"    hiss after (dBFS)     flat {lv(p['noise_after_dbfs']['flat']).strip()}   "
+            f"A {lv(p['noise_after_dbfs']['a']).strip()}   ITU-468 {lv(p['noise_after_dbfs']['itu468']).strip()}",
             "    response              " + "   ".join(
                 f"{int(k) // 1000} kHz " + ("—" if v is None else f"{v:+.1f} dB") for k, v in p["response_db"].items()),
         ]
@@ -104,11 +124,35 @@ def format_report(path, r: dict) -> str:
     return "\n".join(lines)
 
 
-def run(args) -> int:
-    from audition import audiofile
-    from audition.cli.filteropts import design_from_args
+def _signed(v) -> str:
+    return "—" if v is None else f"{v:+.2f}"
 
-    inf = audiofile.info(args.input)
+
+def _heard_lines(r: dict) -> list[str]:
+    """Where the hiss is heard over the programme, and where the programme is heard over the hiss."""
+    h = r["hiss_heard"]
+    share = h["audible_share"]
+    heard = [(f, x) for f, x in zip(h["bands_hz"], share) if x >= 0.05]
+    lines = ["", f"  at {r['listening_level_db']:g} dB SPL for a full-scale sine (--listening-level):"]
+    if heard:
+        top = max(heard, key=lambda fx: fx[1])
+        lines.append(f"    the hiss adds {h['sone']:.2f} sone on average; it is heard in "
+                     f"{heard[0][0] / 1000:.2g}–{heard[-1][0] / 1000:.3g} kHz, most often in the "
+                     f"{top[0] / 1000:.3g} kHz band ({100 * top[1]:.0f} % of the time)")
+    else:
+        lines.append(f"    the hiss is not heard over the programme: under 5 % of the time in every band "
+                     f"({h['sone']:.2f} sone on average)")
+    hb = r["programme"]["heard_bands_hz"]
+    lines.append("    the programme is heard above the hiss (loudest tenth of the time) "
+                 + (f"up to the {hb[-1] / 1000:.3g} kHz band" if hb else "in no band"))
+    return lines
+
+
+def run(args) -> int:
+    from audition.cli.filteropts import design_from_args
+    from audition.io import reader
+
+    inf = reader.info(args.input)
     d = design_from_args(args, inf.rate_hz)  # checked before the long read
     if args.plot:
         import os
@@ -122,8 +166,10 @@ def run(args) -> int:
             raise OutputRefused(f"{args.plot}: is a folder; give the plot a file name ending in .png")
     from audition.cli.noiseopts import survey_file
 
+    from audition.cli.noiseopts import noise_from_args
+
     s = survey_file(args.input, args)
-    r = survey_report(s, d, args.treble_from)
+    r = survey_report(s, d, noise_from_args(args))
     if args.plot:
         from audition.plots.survey import plot_survey
 

@@ -21,8 +21,10 @@ HELP = "synthesise a test clip: programme plus hiss of known colour and level, w
 
 def add_parser(sub) -> None:
     p = sub.add_parser("synth", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ". The programme is our own "
-                       "scenario: four voices of harmonic notes rolling off above --programme-top, silent "
-                       "during the lead-in. Deterministic for a seed.")
+                       "scenario, silent during the lead-in: by default (--programme broadband) four voices, "
+                       "hi-hats, crash cymbals and sibilants whose long-term spectrum follows the IEC 60268-1 "
+                       "simulated programme signal, with treble bursts to 16 kHz; --programme dark gives the "
+                       "four voices alone rolling off above --programme-top. Deterministic for a seed.")
     p.add_argument("out", metavar="OUT.wav", help="the mix (container from the ending: .wav, .flac, .aiff, ...)")
     p.add_argument("--seconds", type=float, default=10.0, metavar="S", help="length in seconds (default 10)")
     p.add_argument("--rate", type=int, default=44100, metavar="HZ", help="sample rate in Hz (default 44100)")
@@ -34,8 +36,13 @@ def add_parser(sub) -> None:
                         "1.3 to 5.3 kHz; default)")
     p.add_argument("--lead-in", type=float, default=1.0, metavar="S",
                    help="seconds of hiss alone before the programme (default 1)")
-    p.add_argument("--programme-top", type=float, default=5000.0, metavar="HZ",
-                   help="where the programme rolls off at 24 dB/octave (default 5000)")
+    p.add_argument("--programme", choices=("broadband", "dark"), default="broadband",
+                   help="broadband (default): long-term spectrum of IEC 60268-1's simulated programme signal, "
+                        "transient treble to 16 kHz; dark: harmonic voices only, falling steeply above "
+                        "--programme-top (the former default)")
+    p.add_argument("--programme-top", type=float, default=None, metavar="HZ",
+                   help="where the programme rolls off at 24 dB/octave (default: 16000 or 0.45*rate if lower "
+                        "for broadband, 5000 for dark)")
     p.add_argument("--seed", type=int, default=0, metavar="N", help="seed of every random choice (default 0)")
     p.add_argument("--stems", metavar="DIR", help="also write DIR/<stem>.programme.wav and DIR/<stem>.hiss.wav "
                                                   "(32-bit float, sample-aligned)")
@@ -56,14 +63,15 @@ def run(args) -> int:
 
     import numpy as np
 
-    from audition import audiofile, synth
+    from audition import synth
     from audition.errors import OutputRefused
+    from audition.io import formats, writer
 
     p = synth.check_params(args.seconds, args.rate, args.channels, args.hiss_dbfs, args.hiss, args.lead_in,
-                           args.seed, args.programme_top)
+                           args.seed, args.programme_top, args.programme)
     frames = int(round(p["seconds"] * p["rate_hz"]))
-    fmt = audiofile.format_for_path(args.out)
-    audiofile.check_output_subtype(args.subtype, fmt, args.out)
+    fmt = formats.format_for_path(args.out)
+    formats.check_output_subtype(args.subtype, fmt, args.out)
     targets = [(args.out, fmt, args.subtype, "mix")]
     made_dir = None
     if args.stems:
@@ -82,7 +90,7 @@ def run(args) -> int:
         for path, *_ in targets[1:]:
             if os.path.lexists(path) and not args.overwrite:
                 raise OutputRefused(f"{path!r}: exists; give --overwrite to replace it")
-    audiofile.check_output_path(args.out, overwrite=args.overwrite)
+    writer.check_output_path(args.out, overwrite=args.overwrite)
     if args.stems and not os.path.isdir(args.stems):
         os.makedirs(args.stems)
         made_dir = args.stems
@@ -91,9 +99,9 @@ def run(args) -> int:
     sq = np.zeros(p["channels"])
     try:
         for path, f, subtype, _ in targets:
-            writers.append(audiofile.AtomicWriter(path, p["rate_hz"], p["channels"], format=f, subtype=subtype,
-                                                  overwrite=args.overwrite, dither=True, seed=p["seed"],
-                                                  frames_hint=frames))
+            writers.append(writer.AtomicWriter(path, p["rate_hz"], p["channels"], format=f, subtype=subtype,
+                                               overwrite=args.overwrite, dither=True, seed=p["seed"],
+                                               frames_hint=frames))
         for b in synth._blocks(p):
             writers[0].write(b.mix)
             if len(writers) > 1:
@@ -122,8 +130,8 @@ def run(args) -> int:
 
     clipped = writers[0].stats.clipped_samples
     print(f"wrote {args.out}: {p['seconds']:g} s, {p['rate_hz']:.0f} Hz, {p['channels']} ch, {args.subtype}; "
-          f"programme (top {p['programme_top_hz']:g} Hz, lead-in {p['lead_in_seconds']:g} s) plus {p['hiss']} "
-          f"hiss at {p['hiss_dbfs']:g} dBFS RMS per channel (20*log10 rms, measured {hiss_dbfs:.2f}); "
+          f"{p['programme']} programme (top {p['programme_top_hz']:g} Hz, lead-in {p['lead_in_seconds']:g} s) "
+          f"plus {p['hiss']} hiss at {p['hiss_dbfs']:g} dBFS RMS per channel (20*log10 rms, measured {hiss_dbfs:.2f}); "
           f"sample peak {peak(writers[0])}; seed {p['seed']}" + (f"; {clipped} samples clipped" if clipped else ""))
     if len(writers) > 1:
         print(f"wrote {targets[1][0]}: the programme alone, 32-bit float, sample peak {peak(writers[1])}")

@@ -3,7 +3,8 @@
 Rooms:
 
 * :mod:`~audition.listen.sources`: the region of a file rendered once through each
-  filter, with the gains that match their ITU-R BS.1770-4 loudness;
+  filter (and converted to the output's rate when that differs), with the gains
+  that match their ITU-R BS.1770-4 loudness;
 * :mod:`~audition.listen.engine`: the callback mixer (switching with an
   equal-power crossfade, loop, seek, pause, start ramp, limiter), pure and
   deterministic, driven by the device or by tests;

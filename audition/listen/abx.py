@@ -55,6 +55,30 @@ def correct_needed(trials: int, alpha: float = ALPHA) -> int | None:
     return None
 
 
+def trials_needed(alpha: float = ALPHA) -> int:
+    """The fewest trials in which some score reaches p < ``alpha``: all right, p = 2**-n < alpha.
+
+    >>> trials_needed(0.05)
+    5
+    """
+    if not 0.0 < alpha < 1.0:
+        raise BadParameter(f"alpha={alpha!r}: must lie between 0 and 1")
+    return max(1, math.floor(math.log2(1.0 / alpha)) + 1)
+
+
+def too_few_trials(trials: int, alpha: float = ALPHA) -> str | None:
+    """One line saying that ``trials`` can never reach p < ``alpha`` and how many can; None if they can.
+
+    >>> too_few_trials(4)  # doctest: +ELLIPSIS
+    '4 trials can never show a difference: even 4 of 4 right gives p = 0.0625, not below 0.05; 5 trials...'
+    """
+    if correct_needed(trials, alpha) is not None:
+        return None
+    best = binomial_p_value(trials, trials)
+    return (f"{trials} trial{'s' if trials != 1 else ''} can never show a difference: even {trials} of {trials} "
+            f"right gives p = {best:.4g}, not below {alpha:g}; {trials_needed(alpha)} trials are the fewest that can")
+
+
 @dataclass
 class Answer:
     trial: int
@@ -65,6 +89,7 @@ class Answer:
     answered_utc: str
     seconds: float
     listens: dict
+    underruns: int = 0
 
 
 class AbxSession:
@@ -117,8 +142,12 @@ class AbxSession:
         if which in self._listens:
             self._listens[which] += 1
 
-    def answer(self, says: str) -> bool:
-        """Record the listener's answer for the current trial ("A" or "B"); True when right."""
+    def answer(self, says: str, underruns: int = 0) -> bool:
+        """Record the listener's answer for the current trial ("A" or "B"); True when right.
+
+        ``underruns`` is the number of output underruns (dropouts) heard during
+        the trial, for the log: a trial with a dropout may deserve a second look.
+        """
         says = str(says).upper()
         if says not in ("A", "B"):
             raise BadParameter(f"answer={says!r}: X is either 'A' or 'B'")
@@ -127,7 +156,7 @@ class AbxSession:
         now, utc = self._clock(), _utc()
         ok = says == self.x
         self.answers.append(Answer(len(self.answers) + 1, self.x, says, ok, self._trial_utc, utc,
-                                   round(now - self._trial_t0, 3), dict(self._listens)))
+                                   round(now - self._trial_t0, 3), dict(self._listens), int(underruns)))
         self._trial_t0, self._trial_utc = now, utc
         self._listens = {"A": 0, "B": 0, "X": 0}
         return ok

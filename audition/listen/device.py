@@ -16,6 +16,15 @@ class NoSound(AuditionError):
     """No way to play: PortAudio missing, no output device, or the device refused the stream."""
 
 
+#: The output latency asked of PortAudio, s. Through the ALSA "pulse" device a stream starts
+#: once one period is buffered, and an underrun then makes PortAudio's ALSA layer restart the
+#: stream, which the plug-in does by opening a new server stream that starts from one period
+#: again; now and then that repeats, for up to seconds of silence. Measured with PulseAudio
+#: 16 and a 44.1 kHz stream on a 48 kHz null sink, 3 s each: PortAudio's "high" default
+#: (35 ms) lost 0.2 and 1.4 s in 2 of 25 starts; 0.1 s (a 105 ms buffer) lost nothing in 50.
+#: A key's reaction time grows by the same amount.
+LATENCY_SECONDS = 0.1
+
 INSTALL_HINT = ("PortAudio, the system sound library, is not installed; on Debian/Ubuntu: "
                 "sudo apt-get install libportaudio2 (every other audition command works without it)")
 
@@ -81,11 +90,48 @@ def pick_output(sd, spec: str | None) -> dict:
     return found[0]
 
 
-def open_stream(sd, mixer, device: dict):
-    """An output stream for ``mixer`` on ``device`` (not started)."""
+def accepts_rate(sd, device: dict, rate_hz: float, channels: int) -> bool:
+    """True when PortAudio says ``device`` can play ``channels`` of float32 at ``rate_hz``."""
+    try:
+        sd.check_output_settings(device=device["index"], samplerate=rate_hz, channels=channels, dtype="float32")
+    except Exception:  # sd.PortAudioError, ValueError
+        return False
+    return True
+
+
+def output_rate(sd, device: dict, file_rate_hz: float, channels: int, asked_hz: float | None = None) -> float:
+    """The rate to open ``device`` at: ``asked_hz`` (``--device-rate``), else the file's own rate.
+
+    A device that refuses the file's rate (a sound card driven directly, at
+    48 kHz only, say) gets its default rate, and the caller converts the region
+    to it before playback. A sound server (PulseAudio, PipeWire) takes any rate
+    and converts it itself, with its own converter, to the rate its output runs at.
+    """
+    if asked_hz is not None:
+        if not accepts_rate(sd, device, asked_hz, channels):
+            raise NoSound(f"device {device['index']} ({device['name']}) refuses {channels} channel(s) at "
+                          f"--device-rate {asked_hz:g} Hz")
+        return float(asked_hz)
+    if accepts_rate(sd, device, file_rate_hz, channels):
+        return float(file_rate_hz)
+    default = float(device.get("default_rate_hz") or 0.0)
+    if default > 0 and accepts_rate(sd, device, default, channels):
+        return default
+    raise NoSound(f"device {device['index']} ({device['name']}) refuses {channels} channel(s) at the file's "
+                  f"{file_rate_hz:g} Hz and at its own {default:g} Hz; try --device-rate 48000 or another --device")
+
+
+def open_stream(sd, mixer, device: dict, latency_seconds: float | None = None):
+    """An output stream for ``mixer`` on ``device`` (not started).
+
+    ``latency_seconds`` (default :data:`LATENCY_SECONDS`) is the output buffer
+    asked of PortAudio: see that constant for why it is not PortAudio's smallest.
+    """
+    latency = LATENCY_SECONDS if latency_seconds is None else float(latency_seconds)
     try:
         return sd.OutputStream(device=device["index"], samplerate=mixer.rate_hz, channels=mixer.out_channels,
-                               dtype="float32", blocksize=mixer.max_block, callback=mixer.callback)
+                               dtype="float32", blocksize=mixer.max_block, callback=mixer.callback,
+                               latency=latency)
     except Exception as exc:  # sd.PortAudioError, ValueError from bad settings
         raise NoSound(f"device {device['index']} ({device['name']}) refused {mixer.out_channels} channel(s) at "
                       f"{mixer.rate_hz:g} Hz: {exc}".replace("\n", " ")) from None

@@ -55,3 +55,17 @@ def figure_png(fig, dpi: int = 110) -> bytes:
     finally:
         pyplot().close(fig)
     return buf.getvalue()
+
+
+#: Frequency ticks a technician reads on a log axis, Hz.
+AUDIO_TICKS_HZ = (20, 50, 100, 200, 500, 1000, 2000, 5000, 10000, 20000)
+
+
+def audio_ticks(ax, lo_hz: float = 20.0, hi_hz: float = 24000.0) -> None:
+    """Label a log-frequency x axis 20, 50, 100 … 1k … 10k, 20k instead of powers of ten."""
+    from matplotlib.ticker import FixedLocator, NullFormatter
+
+    ticks = [t for t in AUDIO_TICKS_HZ if lo_hz <= t <= hi_hz]
+    ax.xaxis.set_major_locator(FixedLocator(ticks))
+    ax.set_xticklabels([f"{t // 1000}k" if t >= 1000 else str(t) for t in ticks])
+    ax.xaxis.set_minor_formatter(NullFormatter())

@@ -1,4 +1,4 @@
-"""The plan picture: the trade-off between SNR gain and treble loss, and the choice over the spectra."""
+"""The plan picture: the trade-off between treble loss and hiss heard, where the hiss is heard, the choice over the spectra."""
 
 from __future__ import annotations
 
@@ -10,46 +10,68 @@ from audition.plots.survey import draw_survey
 
 
 def draw_tradeoff(ax, pl):
-    w = pl.weighting
-    ok = np.isfinite(pl.all_gain_db) & np.isfinite(pl.all_loss_db)
-    ax.plot(pl.all_loss_db[ok & pl.all_allowed], pl.all_gain_db[ok & pl.all_allowed], ".", color="0.6", ms=3,
-            label="candidates")
-    ax.plot(pl.all_loss_db[ok & ~pl.all_allowed], pl.all_gain_db[ok & ~pl.all_allowed], "x", color="0.85", ms=3,
-            label="left out: resonant peak above the limit")
+    """Treble loss (largest cut where the programme is heard) against the share of the heard hiss taken away."""
     fl = [c.treble_loss_db for c in pl.front]
-    fg = [c.snr_gain_db[w] for c in pl.front]
-    ax.plot(fl, fg, "-", color="C0", lw=2, label="best gain for each loss (Pareto front)")
+    fr = [c.reduction_pct for c in pl.front]
+    ax.plot(fl, fr, "o-", color="C0", lw=1.5, ms=5, label="best filter for each budget")
     ax.axvline(pl.budget_db, color="C1", ls="--", lw=1)
-    ax.annotate(f"budget {pl.budget_db:g} dB", (pl.budget_db, 0.03), xycoords=("data", "axes fraction"),
-                xytext=(4, 0), textcoords="offset points", color="C1", fontsize=9)
+    ax.annotate(f"budget {pl.budget_db:g} dB", (pl.budget_db, 0.97), xycoords=("data", "axes fraction"),
+                xytext=(4, -10), textcoords="offset points", color="C1", fontsize=9)
     for alt in pl.alternatives:
-        ax.plot([alt.treble_loss_db], [alt.snr_gain_db[w]], "s", color="C2", ms=7)
-        ax.annotate(f"{alternative_kind(alt, pl.choice)}: {alt.label}", (alt.treble_loss_db, alt.snr_gain_db[w]),
-                    xytext=(8, -16), textcoords="offset points", fontsize=8, color="C2",
-                    bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85))
-    if pl.choice is not None:
-        c = pl.choice
-        ax.plot([c.treble_loss_db], [c.snr_gain_db[w]], "*", color="C3", ms=16, label=f"choice: {c.label}")
-    top = max(pl.budget_db * 4, 3.0)
+        ax.plot([alt.treble_loss_db], [alt.reduction_pct], "s", color="C2", ms=7,
+                label=f"{alternative_kind(alt, pl.choice)}: {alt.label}")
+    best = pl.choice or pl.best_compromise
+    if best is not None:
+        what = "choice" if pl.choice is not None else "best compromise (not chosen)"
+        ax.plot([best.treble_loss_db], [best.reduction_pct], "*", color="C3", ms=16, label=f"{what}: {best.label}")
+    top = max([pl.budget_db * 2.5] + [x * 1.1 for x in fl])
     ax.set_xlim(0, top)
-    sel = ok & (pl.all_loss_db <= top)
-    if sel.any():
-        ax.set_ylim(min(0.0, float(pl.all_gain_db[sel].min())), float(pl.all_gain_db[sel].max()) * 1.1 + 0.5)
-    ax.set_xlabel("treble loss (dB of programme above the treble edge)")
-    ax.set_ylabel(f"SNR gain, {w} weighted (dB)")
+    ax.set_ylim(0, 100)
+    ax.set_xlabel("treble loss: largest cut where the programme is heard (dB)")
+    ax.set_ylabel("hiss heard taken away (%)")
     ax.grid(True, alpha=0.3)
     ax.legend(loc="lower right", fontsize=8)
 
 
+def draw_heard(ax, pl):
+    """Per band, the share of the time the hiss is heard, without and with the filter."""
+    from audition.plots import audio_ticks
+
+    h0 = pl.hiss_before
+    f = np.asarray(h0.bands_hz)
+    ax.semilogx(f, 100 * np.asarray(h0.share_before), "o-", color="0.35", ms=4, label="no filter")
+    best = pl.choice or pl.best_compromise
+    if best is not None:
+        ax.semilogx(f, 100 * np.asarray(best.hiss_heard.share_after), "o-", color="C3", ms=4,
+                    label=f"with {best.label}")
+    if pl.audible_hz:
+        ax.axvspan(min(pl.audible_hz) / 1.12, max(pl.audible_hz) * 1.12, color="C2", alpha=0.08,
+                   label="programme heard above the hiss: cuts here count against the budget")
+    ax.set_ylim(0, 105)
+    ax.set_xlim(100, max(f) * 1.3)
+    audio_ticks(ax, 100, max(f) * 1.3)
+    ax.set_xlabel("one-third-octave band (Hz)")
+    ax.set_ylabel("time the hiss is heard (%)")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(loc="upper left", fontsize=8)
+
+
 def plan_figure(survey, pl, title: str = ""):
     plt = pyplot()
-    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(14, 6.4), width_ratios=(1, 1.3))
+    fig = plt.figure(figsize=(15, 9.5))
+    gs = fig.add_gridspec(2, 2, height_ratios=(1, 1.1))
+    ax1, ax3 = fig.add_subplot(gs[0, 0]), fig.add_subplot(gs[0, 1])
+    ax2 = fig.add_subplot(gs[1, :])
     draw_tradeoff(ax1, pl)
-    ax1.set_title("trade-off", fontsize=10)
-    draw_survey(ax2, survey, None if pl.choice is None else pl.choice.design, legend_loc=None)
-    # below the axes, as in the survey picture: inside, it would hide the hiss or the labels
-    ax2.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=3, fontsize=8, frameon=False)
-    ax2.set_title("spectra with the chosen filter", fontsize=10)
+    ax1.set_title("trade-off at the listening level", fontsize=10)
+    draw_heard(ax3, pl)
+    ax3.set_title(f"where and how often the hiss is heard ({pl.listening_level_db:g} dB SPL for full scale)",
+                  fontsize=10)
+    best = pl.choice or pl.best_compromise
+    draw_survey(ax2, survey, None if best is None else best.design, legend_loc=None)
+    ax2.legend(loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=3, fontsize=8, frameon=False)
+    ax2.set_title("spectra with the chosen filter" if pl.choice is not None else
+                  "spectra (no filter chosen; the best compromise drawn)", fontsize=10)
     fig.suptitle(title, fontsize=11)
     fig.tight_layout()
     return fig
@@ -84,6 +106,9 @@ def response_figure(design, treble_from_hz: float | None = None):
                  f"{design.rate_hz:,.0f} Hz", fontsize=10)
     ax.set_ylim(max(-40.0, float(mag_d.min()) - 3), max(3.0, float(mag_d.max()) + 2))
     ax.set_xlim(20, nyq)
+    from audition.plots import audio_ticks
+
+    audio_ticks(ax, 20, nyq)
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("gain (dB)")
     ax.grid(True, which="both", alpha=0.3)
@@ -100,12 +125,15 @@ def report_figures(survey, pl, design, title: str = "", treble_from_hz: float | 
     out = []
     if survey is not None:
         out.append(("spectra", figure_png(survey_figure(survey, design, title))))
-    out.append(("response", figure_png(response_figure(design, treble_from_hz))))
+    if design is not None:
+        out.append(("response", figure_png(response_figure(design, treble_from_hz))))
     if pl is not None:
         plt = pyplot()
-        fig, ax = plt.subplots(figsize=(9, 5))
+        fig, (ax, axh) = plt.subplots(1, 2, figsize=(14, 5))
         draw_tradeoff(ax, pl)
-        ax.set_title(f"{title}: SNR gain against treble loss, every candidate", fontsize=10)
+        ax.set_title("trade-off: treble loss against the hiss heard taken away", fontsize=10)
+        draw_heard(axh, pl)
+        axh.set_title("where and how often the hiss is heard", fontsize=10)
         fig.tight_layout()
         out.append(("tradeoff", figure_png(fig)))
     return out

@@ -39,7 +39,7 @@ def draw_survey(ax, survey, design=None, legend_loc: str | None = "best"):
     programme under the hiss) is shaded; with a design, the filtered band
     densities are drawn dashed and f0 is marked.
     """
-    from audition.spectrum import band_edges, band_levels
+    from audition.survey.bands import band_edges, band_levels
 
     b = survey.fraction
     f = survey.freqs_hz[1:]
@@ -73,6 +73,9 @@ def draw_survey(ax, survey, design=None, legend_loc: str | None = "best"):
     if valid.size:
         ax.set_ylim(max(valid.min() - 15, valid.max() - 110), valid.max() + 14)
     ax.set_xlim(20, nyq)
+    from audition.plots import audio_ticks
+
+    audio_ticks(ax, 20, nyq)
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("power density (dB re FS²/Hz)")
     ax.grid(True, which="both", alpha=0.3)
@@ -117,8 +120,13 @@ def survey_figure(survey, design=None, title: str = "", prediction: dict | None 
         def fmt(v):
             return "—" if v is None else f"{v:+.1f}"
 
-        lines.append(f"filter {filter_label(design)}: SNR gain flat {fmt(g['flat'])}, A {fmt(g['a'])}, "
-                     f"ITU-468 {fmt(g['itu468'])} dB (RMS); treble loss {prediction['treble_loss_db']:.2f} dB")
+        at = prediction.get("treble_loss_hz")
+        h = prediction.get("hiss_heard") or {}
+        lines.append(f"filter {filter_label(design)}: treble loss {prediction['treble_loss_db']:.2f} dB"
+                     + (f" (largest cut where the programme is heard, {at / 1000:.1f} kHz band)" if at else "")
+                     + (f"; hiss heard {h['before_sone']:.2f} -> {h['after_sone']:.2f} sone" if h else ""))
+        lines.append(f"SNR gain (RMS): unweighted {fmt(g['flat'])}, A-weighted {fmt(g['a'])}, "
+                     f"ITU-R 468-weighted {fmt(g['itu468'])} dB")
     elif design is not None:
         lines.append(f"filter {filter_label(design)}")
     ax.set_title("\n".join(x for x in lines if x), fontsize=10)

@@ -1,4 +1,4 @@
-"""Tests of audition.audiofile: formats, exact integer writing, TPDF dither, atomic writes, checks.
+"""Tests of audition.io: formats, exact integer writing, TPDF dither, atomic writes, checks.
 
 Independent references used here: Python's ``wave`` module (stdlib) to read PCM WAV
 integers without libsndfile, ``struct`` to build WAV files by hand, ``hashlib``
@@ -17,7 +17,7 @@ import wave
 import numpy as np
 import pytest
 
-from audition import audiofile
+from audition.io import formats, quantise, reader, sidecar, tempfiles, writer
 from audition.errors import BadInputFile, BadParameter, OutputRefused
 
 
@@ -93,15 +93,15 @@ def test_round_trip_is_exact_on_the_lsb_grid(tmp_path, ext, subtype):
     # Even frame count: an odd number of 8-bit AIFF frames gets a pad byte that libsndfile reads back.
     x = grid_signal(BITS[subtype], 1000, 3, seed=len(ext) + BITS[subtype])
     p = tmp_path / f"a{ext}"
-    stats = audiofile.write_clip(p, x, 44100, subtype, dither=True)
-    y, rate = audiofile.read_clip(p)
-    info = audiofile.info(p)
+    stats = writer.write_clip(p, x, 44100, subtype, dither=True)
+    y, rate = reader.read_clip(p)
+    info = reader.info(p)
     assert (rate, info.channels, info.frames, info.subtype) == (44100.0, 3, 1000, subtype)
     # dither is +-1 LSB before rounding, so grid values can move; without dither they must not
-    if subtype in audiofile.INTEGER_BITS:
+    if subtype in formats.INTEGER_BITS:
         assert np.max(np.abs(y - x)) <= 1.0 / 2 ** (BITS[subtype] - 1) + 1e-15
-        audiofile.write_clip(p, x, 44100, subtype, dither=False, overwrite=True)
-        y, _ = audiofile.read_clip(p)
+        writer.write_clip(p, x, 44100, subtype, dither=False, overwrite=True)
+        y, _ = reader.read_clip(p)
     np.testing.assert_array_equal(y, x)
     assert stats.frames == 1000
 
@@ -110,12 +110,12 @@ def test_round_trip_is_exact_on_the_lsb_grid(tmp_path, ext, subtype):
 def test_integers_written_are_the_quantisers_integers(tmp_path, subtype):
     # Read with the stdlib wave module, not libsndfile: the file holds exactly the integers the
     # quantiser produced (no rescaling by 2**(b-1)-1, no wrap-around at full scale).
-    bits = audiofile.INTEGER_BITS[subtype]
+    bits = formats.INTEGER_BITS[subtype]
     rng = np.random.default_rng(7)
     x = np.concatenate([rng.uniform(-1.2, 1.2, (4000, 2)), [[1.0, -1.0], [2.0, -2.0]]])
-    q = audiofile.Quantiser(bits, dither=True, seed=11).quantise(x)[0].astype(np.int64)
+    q = quantise.Quantiser(bits, dither=True, seed=11).quantise(x)[0].astype(np.int64)
     p = tmp_path / "q.wav"
-    audiofile.write_clip(p, x, 48000, subtype, seed=11)
+    writer.write_clip(p, x, 48000, subtype, seed=11)
     ints, width = read_wav_ints(p)
     assert width == bits
     np.testing.assert_array_equal(ints, q)
@@ -127,10 +127,10 @@ def test_integers_written_are_the_quantisers_integers(tmp_path, subtype):
 def test_libsndfile_float_to_int_conversion_is_exact_on_the_grid(tmp_path, bits, subtype):
     # The alternative route (float64 k/2**(b-1) handed to libsndfile) is exact too: libsndfile 1.2
     # scales by 2**(b-1). Checked against the stdlib wave reader; if a libsndfile update changed
-    # the scale to 2**(b-1)-1 this would fail and the int32 route chosen in audiofile stays right.
+    # the scale to 2**(b-1)-1 this would fail and the int32 route chosen in audition.io.writer stays right.
     x = grid_signal(bits, 3000, 1, seed=bits)
     p = tmp_path / "f.wav"
-    w = audiofile.AtomicWriter(p, 8000, 1, format="WAV", subtype=subtype)
+    w = writer.AtomicWriter(p, 8000, 1, format="WAV", subtype=subtype)
     with w:
         w._sf.write(x)  # bypass the quantiser: float64 straight into libsndfile
     ints, _ = read_wav_ints(p)
@@ -141,8 +141,8 @@ def test_libsndfile_float_to_int_conversion_is_exact_on_the_grid(tmp_path, bits,
 def test_metadata_is_written_and_read(tmp_path, ext):
     p = tmp_path / f"m{ext}"
     meta = {"title": "Side A, take 2", "artist": "Test Ensemble", "comment": "transfer 1", "date": "1962"}
-    audiofile.write_clip(p, np.zeros((100, 1)), 44100, "PCM_16", metadata=meta)
-    got = audiofile.info(p).metadata
+    writer.write_clip(p, np.zeros((100, 1)), 44100, "PCM_16", metadata=meta)
+    got = reader.info(p).metadata
     # each container keeps a subset of the fields (libsndfile's mapping); what it keeps must be exact
     assert got and "title" in got
     for k, v in got.items():
@@ -155,7 +155,7 @@ def test_metadata_is_written_and_read(tmp_path, ext):
 
 
 def _error_lsb(x, bits, dither, seed=1):
-    q = audiofile.Quantiser(bits, dither=dither, seed=seed).quantise(x)[0].astype(np.int64)
+    q = quantise.Quantiser(bits, dither=dither, seed=seed).quantise(x)[0].astype(np.int64)
     return q[:, 0] - x[:, 0] * 2 ** (bits - 1)
 
 
@@ -198,7 +198,7 @@ def test_dither_removes_the_harmonics_of_a_low_level_sine():
     x = (amp_lsb / 2 ** 15 * np.sin(2 * np.pi * f * np.arange(n) / rate))[:, None]
 
     def harmonics_db(dither):
-        q = audiofile.Quantiser(16, dither=dither, seed=3).quantise(x)[0][:, 0].astype(np.int64)
+        q = quantise.Quantiser(16, dither=dither, seed=3).quantise(x)[0][:, 0].astype(np.int64)
         spec = np.abs(np.fft.rfft(q)) / (n / 2)
         fund = spec[f * n // rate]
         return fund, [20 * np.log10(spec[k * f * n // rate] / fund) for k in (3, 5, 7, 9)]
@@ -214,17 +214,17 @@ def test_dither_does_not_depend_on_the_block_cut():
     # Invariant of the design: the same seed gives the same integers however the signal is cut
     # (odd sizes included), so block size never changes the bytes written.
     x = np.random.default_rng(2).uniform(-0.9, 0.9, (10_001, 3))
-    whole = audiofile.Quantiser(24, seed=9).quantise(x)[0]
-    q = audiofile.Quantiser(24, seed=9)
+    whole = quantise.Quantiser(24, seed=9).quantise(x)[0]
+    q = quantise.Quantiser(24, seed=9)
     parts = [q.quantise(x[a:b])[0] for a, b in [(0, 1), (1, 8), (8, 4097), (4097, 10_001)]]
     np.testing.assert_array_equal(np.concatenate(parts), whole)
-    other = audiofile.Quantiser(24, seed=10).quantise(x)[0]
+    other = quantise.Quantiser(24, seed=10).quantise(x)[0]
     assert np.count_nonzero(other != whole) > 0.3 * whole.size
 
 
 def test_dither_amplitude_is_within_one_lsb_and_triangular():
     # TPDF of +-1 LSB (LWV 1992): support (-1, 1), mean 0, variance 1/6, triangular histogram.
-    d = audiofile.Quantiser(16, seed=4).dither_lsb(200_000) / 65536.0
+    d = quantise.Quantiser(16, seed=4).dither_lsb(200_000) / 65536.0
     assert d.min() > -1.0 and d.max() < 1.0
     assert np.var(d) == pytest.approx(1 / 6, abs=0.003)
     hist, edges = np.histogram(d, bins=10, range=(-1, 1), density=True)
@@ -239,9 +239,9 @@ def test_dither_amplitude_is_within_one_lsb_and_triangular():
 
 def test_simple_function_defaults_agree_with_the_class():
     # python-soundfile style: the thin wrapper and the class it opens share their defaults.
-    wc = inspect.signature(audiofile.write_clip).parameters
-    aw = inspect.signature(audiofile.AtomicWriter).parameters
-    q = inspect.signature(audiofile.Quantiser).parameters
+    wc = inspect.signature(writer.write_clip).parameters
+    aw = inspect.signature(writer.AtomicWriter).parameters
+    q = inspect.signature(quantise.Quantiser).parameters
     for name in ("overwrite", "dither", "seed"):
         assert wc[name].default == aw[name].default
     assert wc["dither"].default == q["dither"].default and wc["seed"].default == q["seed"].default
@@ -250,7 +250,7 @@ def test_simple_function_defaults_agree_with_the_class():
 def test_cli_subtype_list_matches_the_module():
     from audition.cli import render as cli_render
 
-    assert cli_render.SUBTYPES == audiofile.OUTPUT_SUBTYPES
+    assert cli_render.SUBTYPES == formats.OUTPUT_SUBTYPES
 
 
 @pytest.mark.parametrize("ext,meta", [(".wav", {"title": "t", "comment": "c" * 301}), (".flac", {"title": "t"}),
@@ -259,9 +259,9 @@ def test_sha256_while_reading_matches_hashlib(tmp_path, ext, meta):
     # SHA-256 (FIPS 180-4) of the file's bytes via hashlib over the whole file, against the hash
     # gathered from libsndfile's own reads (plus whatever it skipped, e.g. trailing chunks).
     p = tmp_path / f"h{ext}"
-    audiofile.write_clip(p, np.random.default_rng(0).uniform(-.5, .5, (30_000, 2)), 44100, "PCM_16",
-                         metadata=meta)
-    with audiofile.AudioReader(p) as r:
+    writer.write_clip(p, np.random.default_rng(0).uniform(-.5, .5, (30_000, 2)), 44100, "PCM_16",
+                      metadata=meta)
+    with reader.AudioReader(p) as r:
         for _ in r.blocks(4096):
             pass
         assert r.sha256() == hashlib.sha256(p.read_bytes()).hexdigest()
@@ -279,7 +279,7 @@ def test_nan_sample_is_refused_naming_frame_and_channel(tmp_path):
     p = tmp_path / "nan.wav"
     p.write_bytes(wav_bytes(x, 48000, 3, "<f8"))  # IEEE float WAV, format tag 3
     with pytest.raises(BadInputFile, match=r"frame 3210 channel 2 is nan"):
-        audiofile.read_clip(p)
+        reader.read_clip(p)
 
 
 @pytest.mark.parametrize("content,match", [
@@ -293,23 +293,23 @@ def test_bad_files_are_refused(tmp_path, content, match):
     if content is not None:
         p.write_bytes(content)
     with pytest.raises(BadInputFile, match=match) as e:
-        audiofile.read_clip(p)
+        reader.read_clip(p)
     assert "bad.wav" in str(e.value) and "\n" not in str(e.value)
 
 
 def test_folder_and_unreadable_inputs_are_refused(tmp_path, monkeypatch):
     with pytest.raises(BadInputFile, match="is a folder"):
-        audiofile.read_clip(tmp_path)
+        reader.read_clip(tmp_path)
     p = tmp_path / "x.wav"
-    audiofile.write_clip(p, np.zeros((10, 1)), 8000)
+    writer.write_clip(p, np.zeros((10, 1)), 8000)
 
     def denied(*a, **k):
         raise PermissionError(13, "Permission denied")
 
     # tests run as root here, where chmod 000 does not stop reading; a refused open stands in
-    monkeypatch.setattr(audiofile, "open", denied, raising=False)
+    monkeypatch.setattr(reader, "open", denied, raising=False)
     with pytest.raises(BadInputFile, match="not readable"):
-        audiofile.read_clip(p)
+        reader.read_clip(p)
 
 
 # ---------------------------------------------------------------------------
@@ -319,20 +319,20 @@ def test_folder_and_unreadable_inputs_are_refused(tmp_path, monkeypatch):
 
 def test_failure_part_way_leaves_nothing_and_keeps_the_old_file(tmp_path, monkeypatch):
     p = tmp_path / "out.wav"
-    audiofile.write_clip(p, np.full((10, 1), 0.25), 8000)
+    writer.write_clip(p, np.full((10, 1), 0.25), 8000)
     before = p.read_bytes()
     calls = []
-    real = audiofile.AtomicWriter._write_samples  # every write of samples to libsndfile
+    real = writer.AtomicWriter._write_samples  # every write of samples to libsndfile
 
     def fails_on_third(self, data):
         calls.append(len(data))
         if len(calls) == 3:
-            raise audiofile.sf.LibsndfileError(2)  # what libsndfile raises when write(2) fails
+            raise writer.sf.LibsndfileError(2)  # what libsndfile raises when write(2) fails
         return real(self, data)
 
-    monkeypatch.setattr(audiofile.AtomicWriter, "_write_samples", fails_on_third)
+    monkeypatch.setattr(writer.AtomicWriter, "_write_samples", fails_on_third)
     with pytest.raises(OutputRefused, match="disk full") as e:
-        audiofile.write_clip(p, np.zeros((5 * audiofile.BLOCK_FRAMES, 1)), 8000, overwrite=True)
+        writer.write_clip(p, np.zeros((5 * formats.BLOCK_FRAMES, 1)), 8000, overwrite=True)
     assert "out.wav" in str(e.value)
     assert folder_listing(tmp_path) == ["out.wav"]
     assert p.read_bytes() == before
@@ -341,7 +341,7 @@ def test_failure_part_way_leaves_nothing_and_keeps_the_old_file(tmp_path, monkey
 def test_keyboard_interrupt_leaves_nothing(tmp_path):
     p = tmp_path / "out.wav"
     with pytest.raises(KeyboardInterrupt):
-        with audiofile.AtomicWriter(p, 8000, 1, format="WAV", subtype="PCM_16") as w:
+        with writer.AtomicWriter(p, 8000, 1, format="WAV", subtype="PCM_16") as w:
             w.write(np.zeros((1000, 1)))
             raise KeyboardInterrupt
     assert folder_listing(tmp_path) == []
@@ -349,7 +349,7 @@ def test_keyboard_interrupt_leaves_nothing(tmp_path):
 
 def test_output_permissions_are_those_of_a_plain_new_file(tmp_path):
     p = tmp_path / "o.wav"
-    audiofile.write_clip(p, np.zeros((10, 1)), 8000)
+    writer.write_clip(p, np.zeros((10, 1)), 8000)
     umask = os.umask(0)
     os.umask(umask)
     assert (os.stat(p).st_mode & 0o777) == 0o666 & ~umask
@@ -358,7 +358,7 @@ def test_output_permissions_are_those_of_a_plain_new_file(tmp_path):
 @pytest.mark.parametrize("how", ["same", "other spelling", "symlink", "hard link"])
 def test_output_that_is_the_input_is_refused(tmp_path, how):
     src = tmp_path / "in.wav"
-    audiofile.write_clip(src, np.zeros((10, 1)), 8000)
+    writer.write_clip(src, np.zeros((10, 1)), 8000)
     out = {"same": src, "other spelling": tmp_path / "." / "sub" / ".." / "in.wav"}.get(how, tmp_path / "alias.wav")
     (tmp_path / "sub").mkdir()
     if how == "symlink":
@@ -366,36 +366,36 @@ def test_output_that_is_the_input_is_refused(tmp_path, how):
     elif how == "hard link":
         os.link(src, out)
     with pytest.raises(OutputRefused, match="is the input"):
-        audiofile.check_output_path(out, inputs=[src], overwrite=True)
+        writer.check_output_path(out, inputs=[src], overwrite=True)
 
 
 def test_existing_output_needs_overwrite_and_folder_must_exist(tmp_path):
     p = tmp_path / "o.wav"
-    audiofile.write_clip(p, np.zeros((10, 1)), 8000)
+    writer.write_clip(p, np.zeros((10, 1)), 8000)
     with pytest.raises(OutputRefused, match="exists; give --overwrite"):
-        audiofile.write_clip(p, np.zeros((10, 1)), 8000)
+        writer.write_clip(p, np.zeros((10, 1)), 8000)
     with pytest.raises(OutputRefused, match="does not exist"):
-        audiofile.write_clip(tmp_path / "nowhere" / "o.wav", np.zeros((10, 1)), 8000)
+        writer.write_clip(tmp_path / "nowhere" / "o.wav", np.zeros((10, 1)), 8000)
 
 
 @pytest.mark.parametrize("subtype,fmt,match", [("ULAW", "WAV", "allowed are"), ("PCM_U8", "FLAC", "does not fit"),
                                                ("DOUBLE", "FLAC", "does not fit")])
 def test_subtypes_are_checked(subtype, fmt, match):
     with pytest.raises(BadParameter, match=match):
-        audiofile.check_output_subtype(subtype, fmt)
+        formats.check_output_subtype(subtype, fmt)
 
 
 def test_an_ending_naming_another_container_is_refused(tmp_path):
     with pytest.raises(BadParameter, match="names another container"):
-        audiofile.AtomicWriter(tmp_path / "o.flac", 8000, 1, format="WAV", subtype="PCM_16")
+        writer.AtomicWriter(tmp_path / "o.flac", 8000, 1, format="WAV", subtype="PCM_16")
     assert folder_listing(tmp_path) == []
 
 
 def test_wav_beyond_4_gib_is_refused_before_writing(tmp_path):
     # RIFF sizes are 32-bit (Microsoft RIFF specification): a WAV file cannot exceed 4 GiB.
     with pytest.raises(OutputRefused, match="does not fit a WAV"):
-        audiofile.AtomicWriter(tmp_path / "o.wav", 48000, 2, format="WAV", subtype="DOUBLE",
-                               frames_hint=48000 * 3600 * 2)
+        writer.AtomicWriter(tmp_path / "o.wav", 48000, 2, format="WAV", subtype="DOUBLE",
+                            frames_hint=48000 * 3600 * 2)
     assert folder_listing(tmp_path) == []
 
 
@@ -407,21 +407,21 @@ def test_ctrl_c_while_the_writer_is_being_made_leaves_nothing(tmp_path, monkeypa
         raise KeyboardInterrupt
 
     if where == "writer's meter":
-        monkeypatch.setattr(audiofile, "TruePeakMeter", interrupted)
+        monkeypatch.setattr(writer, "TruePeakMeter", interrupted)
     else:
-        monkeypatch.setattr(audiofile.os, "fchmod", interrupted)
+        monkeypatch.setattr(tempfiles.os, "fchmod", interrupted)
     with pytest.raises(KeyboardInterrupt):
-        audiofile.AtomicWriter(tmp_path / "out.wav", 48000, 2, format="WAV", subtype="PCM_24")
+        writer.AtomicWriter(tmp_path / "out.wav", 48000, 2, format="WAV", subtype="PCM_24")
     assert os.listdir(tmp_path) == []
 
 
 def test_sidecar_is_written_atomically(tmp_path):
-    p = audiofile.sidecar_path(tmp_path / "o.wav")
+    p = sidecar.sidecar_path(tmp_path / "o.wav")
     assert p.endswith("o.wav.json")
-    audiofile.write_sidecar(p, {"a": 1})
+    sidecar.write_sidecar(p, {"a": 1})
     assert open(p).read() == '{\n  "a": 1\n}\n'
     with pytest.raises(ValueError):
-        audiofile.write_sidecar(tmp_path / "n.json", {"x": float("nan")})  # JSON has no NaN (RFC 8259)
+        sidecar.write_sidecar(tmp_path / "n.json", {"x": float("nan")})  # JSON has no NaN (RFC 8259)
     assert folder_listing(tmp_path) == ["o.wav.json"]
 
 
@@ -453,12 +453,12 @@ def test_true_peak_is_that_of_the_samples_in_the_file(tmp_path, subtype):
     x = 0.9 * fs4_sine(5000)[:, None] * [1.0, 0.5] + 0.01 * rng.standard_normal((5000, 2))
     x[4000:4010] = [1.3, -1.3]  # beyond full scale: saturated in integer files, kept in float ones
     p = tmp_path / "t.wav"
-    stats = audiofile.write_clip(p, x, 48000, subtype, seed=2)
-    if subtype in audiofile.INTEGER_BITS:
+    stats = writer.write_clip(p, x, 48000, subtype, seed=2)
+    if subtype in formats.INTEGER_BITS:
         ints, bits = read_wav_ints(p)
         y = ints / 2.0 ** (bits - 1)
     else:
-        y, _ = audiofile.read_clip(p)
+        y, _ = reader.read_clip(p)
     assert stats.true_peak == pytest.approx(upfirdn_peak(y), rel=1e-12)
     assert stats.true_peak >= stats.peak and stats.true_peak_dbtp == pytest.approx(20 * np.log10(stats.true_peak))
     assert stats.clipped_samples == 20
@@ -473,11 +473,11 @@ def test_float_files_are_byte_reproducible(tmp_path, fmt, ext, subtype):
     # of the format, no source): the writer leaves it out, so the same samples give the same bytes.
     x = np.random.default_rng(1).uniform(-1, 1, (3000, 2))
     a, b = tmp_path / ("a" + ext), tmp_path / ("b" + ext)
-    audiofile.write_clip(a, x, 44100, subtype, format=fmt)
-    audiofile.write_clip(b, x, 44100, subtype, format=fmt)
+    writer.write_clip(a, x, 44100, subtype, format=fmt)
+    writer.write_clip(b, x, 44100, subtype, format=fmt)
     assert a.read_bytes() == b.read_bytes()
     if fmt == "WAV":
         assert b"PEAK" not in riff_chunk_ids(a.read_bytes())
     # the samples are still exactly those given (float32 rounding for FLOAT)
-    y, _ = audiofile.read_clip(a)
+    y, _ = reader.read_clip(a)
     np.testing.assert_array_equal(y, x.astype(np.float32) if subtype == "FLOAT" else x)

@@ -37,9 +37,9 @@ from pathlib import Path
 
 from audition.errors import BadInputFile, BadParameter
 
-ALIGNMENTS = ("butterworth", "bessel", "linkwitz-riley")
-METHODS = ("bilinear", "matched")
-LOWPASS_KEYS = {"f0_hz", "q", "order", "alignment", "sections", "method", "gain_db"}
+from audition.design.checks import ALIGNMENTS, METHODS
+
+LOWPASS_KEYS = {"f0_hz", "q", "order", "alignment", "ripple_db", "sections", "method", "gain_db"}
 TOP_KEYS = {"name", "note", "lowpass", "highpass", "predicted", "survey", "audition_version", "written_utc"}
 
 
@@ -62,6 +62,7 @@ class FilterSpec:
     highpass_hz: float | None = None
     source: str = ""
     extra: dict = field(default_factory=dict, compare=False)
+    ripple_db: float | None = None
 
     def design(self, rate_hz: float):
         """The :class:`~audition.design.Design` of this filter at ``rate_hz``."""
@@ -71,7 +72,8 @@ class FilterSpec:
             return design.from_sections(self.sections, rate_hz, gain_db=self.gain_db, method=self.method,
                                         highpass_hz=self.highpass_hz)
         return design.lowpass(self.f0_hz, rate_hz, q=self.q, order=self.order, alignment=self.alignment,
-                              gain_db=self.gain_db, method=self.method, highpass_hz=self.highpass_hz)
+                              gain_db=self.gain_db, method=self.method, highpass_hz=self.highpass_hz,
+                              ripple_db=self.ripple_db)
 
     @classmethod
     def from_design(cls, d, name: str, note: str = "") -> FilterSpec:
@@ -82,7 +84,7 @@ class FilterSpec:
                        highpass_hz=d.highpass_hz)
         if d.alignment is not None:
             return cls(name, note, f0_hz=d.f0_hz, order=d.order, alignment=d.alignment, method=d.method,
-                       gain_db=d.passband_gain_db, highpass_hz=d.highpass_hz)
+                       gain_db=d.passband_gain_db, highpass_hz=d.highpass_hz, ripple_db=d.ripple_db)
         return cls(name, note, sections=tuple((s.f0_hz, s.q) for s in lows), method=d.method,
                    gain_db=d.passband_gain_db, highpass_hz=d.highpass_hz)
 
@@ -100,6 +102,8 @@ class FilterSpec:
             lines.append(f"f0_hz = {_num(self.f0_hz)}")
             if self.alignment:
                 lines += [f"order = {self.order}", f"alignment = {_toml_str(self.alignment)}"]
+                if self.ripple_db is not None:
+                    lines.append(f"ripple_db = {_num(self.ripple_db)}")
             elif self.order != 2:
                 lines.append(f"order = {self.order}")
             else:
@@ -179,11 +183,11 @@ def parse_spec(data: dict, source: str) -> FilterSpec:
         raise bad("lowpass.method", f"= {method!r}; allowed are {', '.join(METHODS)}")
     gain_db = number(low, "gain_db", "lowpass", 0.0, positive=False)
     sections: tuple = ()
-    f0 = q = alignment = None
+    f0 = q = alignment = ripple_db = None
     order = 2
     if "sections" in low:
-        if {"f0_hz", "q", "order", "alignment"} & set(low):
-            raise bad("lowpass.sections", "gives the whole cascade: leave out f0_hz, q, order and alignment")
+        if {"f0_hz", "q", "order", "alignment", "ripple_db"} & set(low):
+            raise bad("lowpass.sections", "gives the whole cascade: leave out f0_hz, q, order, alignment and ripple_db")
         rows = low["sections"]
         if not isinstance(rows, list) or not rows:
             raise bad("lowpass.sections", "must be a non-empty list of { f0_hz = ..., q = ... }")
@@ -206,6 +210,9 @@ def parse_spec(data: dict, source: str) -> FilterSpec:
             raise bad("lowpass.alignment", f"= {alignment!r}; allowed are {', '.join(ALIGNMENTS)}")
         if q is not None and (alignment is not None or order != 2):
             raise bad("lowpass.q", "applies to one second-order section: leave it out with order/alignment")
+        ripple_db = number(low, "ripple_db", "lowpass")
+        if (ripple_db is not None) != (alignment == "chebyshev"):
+            raise bad("lowpass.ripple_db", "goes with alignment = \"chebyshev\", and that alignment needs it")
     high = data.get("highpass")
     highpass_hz = None
     if high is not None:
@@ -213,7 +220,7 @@ def parse_spec(data: dict, source: str) -> FilterSpec:
             raise bad("highpass", "must be a table with f0_hz only")
         highpass_hz = number(high, "f0_hz", "highpass")
     return FilterSpec(name, note, f0, q, order, alignment, sections, method, gain_db, highpass_hz, source,
-                      {k: data[k] for k in ("predicted", "survey") if k in data})
+                      {k: data[k] for k in ("predicted", "survey") if k in data}, ripple_db)
 
 
 def load(path) -> FilterSpec:
@@ -247,7 +254,7 @@ def check_design(spec: FilterSpec, rate_hz: float, path=None):
 
 def bundled_folder() -> Path:
     """The presets folder shipped beside the package (top level of the source tree)."""
-    return Path(__file__).resolve().parent.parent / "presets"
+    return Path(__file__).resolve().parents[2] / "presets"
 
 
 def search_folders() -> list[Path]:
