@@ -398,8 +398,3 @@ def _front(choose_in, exact, budget_db):
             seen.add(c)
             out.append(exact(*c))
     return tuple(sorted(out, key=lambda c: c.treble_loss_db))
-
-
-def alternative_kind(alt, choice) -> str:
-    """"gentler" for an alternative that takes less from the programme than the choice, else "stronger"."""
-    return "gentler" if choice is not None and alt.treble_loss_db < choice.treble_loss_db else "stronger"

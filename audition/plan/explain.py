@@ -105,9 +105,12 @@ def explain(choice, reason, best_compromise, alternatives, nothing, bands, audib
            "Candidates within 0.05 dB of the best gain count as equal; among them the lowest order wins, then the "
            "higher f0.")
     text += tie
-    from audition.plan.choose import alternative_kind
-
     for alt in alternatives:
         text += (f" A {alternative_kind(alt, choice)} choice, {alt.label}, {_cost(alt, None, bands)}; "
                  f"{_gain(alt, objective, weighting)}.")
     return text
+
+
+def alternative_kind(alt, choice) -> str:
+    """"gentler" for an alternative that takes less from the programme than the choice, else "stronger"."""
+    return "gentler" if choice is not None and alt.treble_loss_db < choice.treble_loss_db else "stronger"
