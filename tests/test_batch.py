@@ -119,7 +119,7 @@ def test_bad_files_are_reported_and_the_good_outputs_are_right(tmp_path, good_an
     assert float(by_name["b.wav"]["duration_seconds"]) == pytest.approx(1.0)
     assert int(by_name["b.wav"]["channels"]) == 2 and float(by_name["b.wav"]["f0_hz"]) == F0
     rep = json.loads((out / "batch-report.json").read_text())
-    assert rep["summary"]["counts"] == {"done": 2, "skipped": 0, "failed": 3, "not_run": 0}
+    assert rep["summary"]["counts"] == {"done": 2, "no_filter": 0, "skipped": 0, "failed": 3, "not_run": 0}
     assert rep["summary"]["audio_seconds"] == pytest.approx(2.0)
     names = [os.path.relpath(r["input"], good_and_bad) for r in rep["rows"]]  # sorted by path
     assert names == ["a.wav", "corrupt.wav", "empty.flac", os.path.join("tape2", "b.wav"), "vorbis.ogg"]
@@ -574,7 +574,7 @@ def test_cluster_gives_the_same_outputs_and_report_as_local_workers(tmp_path):
     local = json.loads((tmp_path / "local" / "batch-report.json").read_text())
     remote = json.loads((tmp_path / "remote" / "batch-report.json").read_text())
     assert remote["columns"] == local["columns"]
-    assert remote["summary"]["counts"] == local["summary"]["counts"] == {"done": 2, "skipped": 0, "failed": 1,
+    assert remote["summary"]["counts"] == local["summary"]["counts"] == {"done": 2, "no_filter": 0, "skipped": 0, "failed": 1,
                                                                           "not_run": 0}
     assert remote["summary"]["runner"].startswith("dask cluster tcp://127.0.0.1:")
     timing = {"seconds", "realtime_factor", "output"}

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 from audition.errors import AuditionError
 
 #: Statuses of a row: rendered now, skipped (done by an earlier run), failed, or not run (interrupted).
-STATUSES = ("done", "skipped", "failed", "not run")
+STATUSES = ("done", "no filter", "skipped", "failed", "not run")
 #: The first columns of the report, in order; figures of the prediction and measurement follow.
 ROW_FIELDS = ("input", "output", "status", "reason", "warnings", "filter", "duration_seconds", "rate_hz",
               "channels", "f0_hz", "q", "order", "alignment", "highpass_hz", "sections", "method", "peak_dbfs",
@@ -291,7 +291,11 @@ def run_job(job: Job) -> dict:
                                 subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite,
                                 provenance={"batch_run": job.run} if job.run else None, threads=job.threads)
         row_from_render(row, r)
-        row.update(status="done", reason="")
+        if r.get("output") is None:
+            # --auto answered "no filter": neither rendered nor failed, nothing written
+            row.update(status="no filter", reason=_one_line(r.get("no_filter_reason") or ""), output="")
+        else:
+            row.update(status="done", reason="")
     except AuditionError as exc:
         # the row already names the clip: drop the message's own "'path': " in front
         reason = _one_line(exc)

@@ -160,13 +160,14 @@ def format_summary(result, paths) -> str:
     s = result.summary
     c = s["counts"]
     thr = s["throughput_audio_seconds_per_second"]
-    lines = [f"batch: {s['files']} clip(s): {c['done']} rendered, {c['skipped']} already done, {c['failed']} failed"
+    lines = [f"batch: {s['files']} clip(s): {c['done']} rendered, {c.get('no_filter', 0)} no filter, "
+             f"{c['skipped']} already done, {c['failed']} failed"
              + (f", {c['not_run']} not run (interrupted)" if c["not_run"] else ""),
              f"  {_clock(s['rendered_audio_seconds'])} of audio rendered in {s['wall_seconds']:.2f} s"
              + (f" ({thr:,.1f}x real time)" if thr else "") + f" on {s['runner']}"]
     for r in result.rows:
-        if r["status"] == "failed":
-            lines.append(f"  failed: {r['input']}: {r['reason']}")
+        if r["status"] in ("failed", "no filter"):
+            lines.append(f"  {r['status']}: {r['input']}: {r['reason']}")
     lines.append(f"  report: {paths[0]} and {paths[1]}")
     if result.interrupted:
         lines.append("  interrupted: run the same command with --resume to finish")

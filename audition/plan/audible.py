@@ -34,7 +34,7 @@ Nothing here reads files or prints.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -90,6 +90,7 @@ class Bands:
     noise_psd: np.ndarray
     freqs_hz: np.ndarray
     rate_hz: float
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def programme_frames(self) -> np.ndarray:
@@ -207,13 +208,29 @@ class HissHeard:
                 "audible_share_after": [float(x) for x in self.share_after]}
 
 
-def _heard(bands: Bands, programme: np.ndarray, noise: np.ndarray, listening_level_db: float):
-    """ISO 532-1 hiss heard for columns of programme (n, B) and hiss (n, B) band powers."""
+#: Columns evaluated at once by the loudness model: bounds its work arrays (240 Bark points a column) to a
+#: few tens of MB whatever the length of the file.
+HEARD_CHUNK = 4096
+
+
+@dataclass(frozen=True)
+class _HeardColumns:
+    heard_sone: np.ndarray
+    audible: np.ndarray
+
+
+def _heard(bands: Bands, programme: np.ndarray, noise: np.ndarray, listening_level_db: float) -> _HeardColumns:
+    """ISO 532-1 hiss heard for columns of programme (n, B) and hiss (n, B) band powers, in chunks."""
     from audition.hearing.heard import hiss_heard
 
-    p = spl_db(_zwicker_columns(bands, programme), listening_level_db)
-    n = spl_db(_zwicker_columns(bands, noise), listening_level_db)
-    return hiss_heard(p, n)
+    sone, audible = [], []
+    for i in range(0, max(len(programme), 1), HEARD_CHUNK):
+        p = spl_db(_zwicker_columns(bands, programme[i:i + HEARD_CHUNK]), listening_level_db)
+        n = spl_db(_zwicker_columns(bands, noise[i:i + HEARD_CHUNK]), listening_level_db)
+        res = hiss_heard(p, n)
+        sone.append(np.atleast_1d(np.asarray(res.heard_sone, dtype=float)))
+        audible.append(np.asarray(res.audible).reshape(len(p), -1))
+    return _HeardColumns(np.concatenate(sone), np.concatenate(audible, axis=1))
 
 
 def hiss_heard(bands: Bands, gain_programme: np.ndarray, gain_noise: np.ndarray,
@@ -225,15 +242,16 @@ def hiss_heard(bands: Bands, gain_programme: np.ndarray, gain_noise: np.ndarray,
     if len(prog) == 0:
         z = np.zeros(len(THIRD_OCTAVE_HZ))
         return HissHeard(0.0, 0.0, 0.0, z, z, np.asarray(THIRD_OCTAVE_HZ, dtype=float))
-    t = len(prog)
     noise = np.broadcast_to(bands.noise, prog.shape)
-    both = _heard(bands, np.concatenate([prog, prog * gain_programme[None, :]]),
-                  np.concatenate([noise, noise * gain_noise[None, :]]), listening_level_db)
-    sone = np.asarray(both.heard_sone)
-    audible = np.asarray(both.audible)
-    before, after = float(sone[:t].mean()), float(sone[t:].mean())
-    return HissHeard(before, after, _reduction(before, after), audible[:, :t].mean(axis=1),
-                     audible[:, t:].mean(axis=1), np.asarray(THIRD_OCTAVE_HZ, dtype=float))
+    key = ("unfiltered", float(listening_level_db))
+    if key not in bands.cache:  # the same for every filter judged on these frames
+        res = _heard(bands, prog, noise, listening_level_db)
+        bands.cache[key] = (float(np.mean(res.heard_sone)), np.asarray(res.audible).mean(axis=1))
+    before, share_before = bands.cache[key]
+    res = _heard(bands, prog * gain_programme[None, :], noise * gain_noise[None, :], listening_level_db)
+    after = float(np.mean(res.heard_sone))
+    return HissHeard(before, after, _reduction(before, after), share_before, np.asarray(res.audible).mean(axis=1),
+                     np.asarray(THIRD_OCTAVE_HZ, dtype=float))
 
 
 def _reduction(before: float, after: float) -> float:

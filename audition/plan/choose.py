@@ -251,10 +251,14 @@ def plan(bands: Bands, *, budget_db: float = DEFAULT_BUDGET_DB, objective: str =
     loss, _ = treble_loss(g_p, audible, bands.centres_hz)
     searched = int(len(shape_list) * len(f0s))
 
+    judged: dict[tuple[int, int], Candidate] = {}
+
     def exact(i, j):
-        d = shape_list[i].design(float(f0s[j]), rate_hz, method=method, highpass_hz=highpass_hz)
-        return judge(bands, d, listening_level_db=listening_level_db, audible=audible,
-                     shape_label=shape_list[i].label)
+        if (i, j) not in judged:
+            d = shape_list[i].design(float(f0s[j]), rate_hz, method=method, highpass_hz=highpass_hz)
+            judged[(i, j)] = judge(bands, d, listening_level_db=listening_level_db, audible=audible,
+                                   shape_label=shape_list[i].label)
+        return judged[(i, j)]
 
     nothing = judge_nothing(bands, listening_level_db)
     if objective == "heard":
