@@ -7,7 +7,8 @@ Treble loss
     The largest cut, in dB, that the filter makes to the programme in any band
     where the programme can be heard, with the band where it occurs. A band counts
     when the programme in its loud moments stands above the hiss by ``margin_db``
-    and above the threshold of hearing at the listening level. "Loud moments" is
+    (less 3 dB: programme that close under the hiss is still partly heard) and above
+    the threshold of hearing at the listening level. "Loud moments" is
     the programme's level in the band that is reached in the loudest tenth of the
     analysis frames (its 90th percentile): a cymbal or a sibilant is heard when it
     sounds, even if the long-term average sinks under the hiss (our choice; the
@@ -45,6 +46,10 @@ DEFAULT_LISTENING_LEVEL_DB = 100.0
 LOUD_PERCENTILE = 90.0
 #: A full-scale sine's mean square is 1/2: its level is 3.01 dB above that of a full-scale mean square of 1/2.
 FULL_SCALE_SINE_DB = 10.0 * math.log10(2.0)
+#: A band whose programme comes within this many dB under the hiss still counts as heard: there it still
+#: carries a third of the band's power or more, and the estimate of a single band is not sharper than
+#: that (our choice; without it a steep filter could cut such a band by 15 dB at "no" treble loss).
+PARTLY_HEARD_DB = 3.0
 #: Grid points per band for the in-band cut (log-spaced midpoints).
 POINTS_PER_BAND = 8
 #: Frame groups the search evaluates the hiss heard on (the choice is then evaluated on every frame).
@@ -129,7 +134,7 @@ def audible_bands(bands: Bands, listening_level_db: float, margin_db: float = 0.
     from audition.hearing.threshold import threshold_db_spl
 
     loud = bands.loud_programme()
-    above_hiss = loud > bands.noise * 10.0 ** (margin_db / 10.0)
+    above_hiss = loud > bands.noise * 10.0 ** ((margin_db - PARTLY_HEARD_DB) / 10.0)
     above_threshold = spl_db(loud, listening_level_db) > threshold_db_spl(bands.centres_hz)
     return above_hiss & above_threshold & (bands.centres_hz >= treble_from_hz)
 
