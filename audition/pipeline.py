@@ -450,7 +450,6 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     AuditionError
         BadParameter, BadInputFile or OutputRefused; nothing is left behind.
     """
-    from audition import measure
     from audition.io import reader, writer
     from audition.io.sidecar import sidecar_path, write_sidecar
     from audition.plan import presets

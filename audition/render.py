@@ -23,8 +23,6 @@ import threading
 import time
 from dataclasses import dataclass
 
-import numpy as np
-
 from audition import __version__
 from audition.errors import BadInputFile, BadParameter
 from audition.io.formats import BLOCK_FRAMES, OUTPUT_SUBTYPES

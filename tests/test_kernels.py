@@ -130,7 +130,6 @@ def test_both_implementations_render_the_same_bytes(tmp_path, monkeypatch):
 @pytest.mark.parametrize("screen", [True, False])
 def test_both_true_peak_scans_read_the_same_to_the_bit(screen):
     # Same windows, same order of summation: the compiled scan equals the numpy one exactly.
-    from audition import truepeak
 
     if kernels.compiled is None:
         pytest.skip("the C kernels were not built on this machine")

@@ -8,9 +8,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from audition import design
-from audition.plan import audible, shapes
-from audition.plan.choose import judge, plan
+from audition.plan import shapes
 
 
 # --- the search space --------------------------------------------------------------------------------------
