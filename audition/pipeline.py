@@ -160,10 +160,9 @@ def predict(survey, design, noise: NoiseReference | None = None) -> dict:
     old = measure.predict(survey.freqs_hz, survey.programme_psd, survey.noise_psd, design,
                           treble_from_hz=noise.treble_from_hz).to_dict()
     c = judge(survey.hearing_bands, design, listening_level_db=noise.listening_level_db, margin_db=noise.margin_db,
-              treble_from_hz=noise.treble_from_hz)
+              treble_from_hz=noise.treble_from_hz, snr_gain_db=old["snr_gain_db"])
     out = c.predicted()
     out["hiss_heard"] = c.hiss_heard.to_dict()
-    out["snr_gain_db"] = old["snr_gain_db"]
     out["treble_power_share_lost_db"] = old.pop("treble_loss_db")
     for key in ("treble_from_hz", "response_db", "noise_before_dbfs", "noise_after_dbfs", "noise_reduction_db"):
         out[key] = old[key]

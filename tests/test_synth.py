@@ -19,7 +19,7 @@ from audition.cli import main
 from audition.errors import BadParameter
 
 #: IEC 60268-1:1985 clause 7, Table II: relative one-third-octave levels (dB) of the simulated
-#: programme signal, 20 Hz .. 20 kHz. Taken from a secondary transcription, not the printed
+#: programme signal, 20 Hz .. 20 kHz. Taken from a secondary copy, not the printed
 #: standard (so: not checked against the original); the middle bands carry a tolerance of
 #: ±0.5 dB there, the bands from 31.5 Hz to 10 kHz about ±1 dB, the ends ±1.5 .. ±3 dB.
 IEC_60268_1_TABLE_II = {

@@ -51,7 +51,7 @@ FIELDS = ("free", "diffuse")
 
 # ---------------------------------------------------------------------------------------------
 # Values of ISO 532-1:2017 tables, transcribed; the comparison with mosqito in the tests checks
-# the transcription. Names are those of the standard's program (Zwicker's BASIC program of
+# the copied values. Names are those of the standard's program (Zwicker's BASIC program of
 # DIN 45631, carried into ISO 532-1:2017 Annex A).
 # ---------------------------------------------------------------------------------------------
 

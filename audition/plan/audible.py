@@ -108,24 +108,28 @@ class Bands:
             return np.zeros(len(self.centres_hz))
         return np.percentile(self.programme_frames, LOUD_PERCENTILE, axis=0)
 
-    def grid(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Points inside each band and their weights: ``(freqs, w_programme, w_noise)``, band after band.
-
-        ``POINTS_PER_BAND`` log-spaced midpoints per band; each point's weight is the
-        long-term PSD there times the share of the band it stands for, normalised to a
-        sum of 1 within the band (flat when the band holds no power).
-        """
+    def points(self) -> tuple[np.ndarray, np.ndarray]:
+        """``POINTS_PER_BAND`` log-spaced midpoints per band, band after band, and the width each stands for, Hz."""
         k = (np.arange(POINTS_PER_BAND) + 0.5) / POINTS_PER_BAND
         ratio = self.hi_hz / self.lo_hz
         pts = self.lo_hz[:, None] * ratio[:, None] ** k[None, :]
-        width = self.lo_hz[:, None] * ratio[:, None] ** k[None, :] * np.log(ratio)[:, None] / POINTS_PER_BAND
+        width = pts * np.log(ratio)[:, None] / POINTS_PER_BAND
+        return pts.reshape(-1), width.reshape(-1)
+
+    def grid(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Points inside each band and their weights: ``(freqs, w_programme, w_noise)``, band after band.
+
+        The :meth:`points`; each point's weight is the long-term PSD there times the width it
+        stands for, normalised to a sum of 1 within the band (flat when the band holds no power).
+        """
+        pts, width = self.points()
         out = []
         for psd in (self.programme_psd, self.noise_psd):
-            w = np.interp(pts, self.freqs_hz, np.maximum(psd, 0.0)) * width
+            w = (np.interp(pts, self.freqs_hz, np.maximum(psd, 0.0)) * width).reshape(-1, POINTS_PER_BAND)
             total = w.sum(axis=1, keepdims=True)
             w = np.where(total > 0, w / np.where(total > 0, total, 1.0), 1.0 / POINTS_PER_BAND)
             out.append(w.reshape(-1))
-        return pts.reshape(-1), out[0], out[1]
+        return pts, out[0], out[1]
 
 
 def audible_bands(bands: Bands, listening_level_db: float, margin_db: float = 0.0,

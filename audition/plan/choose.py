@@ -149,9 +149,13 @@ class Plan:
 
 
 def judge(bands: Bands, design, *, listening_level_db: float = DEFAULT_LISTENING_LEVEL_DB, margin_db: float = 0.0,
-          treble_from_hz: float = 2000.0, audible: np.ndarray | None = None, shape_label: str | None = None
-          ) -> Candidate:
-    """What ``design`` does to what is heard, from its digital sections, on every frame."""
+          treble_from_hz: float = 2000.0, audible: np.ndarray | None = None, shape_label: str | None = None,
+          snr_gain_db: dict | None = None) -> Candidate:
+    """What ``design`` does to what is heard, from its digital sections, on every frame.
+
+    ``snr_gain_db``: the weighted SNR gains when the caller has already predicted them
+    (:func:`audition.measure.predict`); else they are predicted here.
+    """
     from audition.measure import predict
 
     if audible is None:
@@ -161,7 +165,8 @@ def judge(bands: Bands, design, *, listening_level_db: float = DEFAULT_LISTENING
     g_p, g_n = band_gains(h2, w_p), band_gains(h2, w_n)
     loss, at = treble_loss(g_p, audible, bands.centres_hz)
     heard = hiss_heard(bands, g_p, g_n, listening_level_db)
-    snr = predict(bands.freqs_hz, bands.programme_psd, bands.noise_psd, design).snr_gain_db
+    snr = (snr_gain_db if snr_gain_db is not None
+           else predict(bands.freqs_hz, bands.programme_psd, bands.noise_psd, design).snr_gain_db)
     with np.errstate(divide="ignore"):
         cut, ncut = -10.0 * np.log10(np.maximum(g_p, 1e-300)), -10.0 * np.log10(np.maximum(g_n, 1e-300))
     return Candidate(design, shape_label or _design_label(design), float(loss),
@@ -264,11 +269,11 @@ def plan(bands: Bands, *, budget_db: float = DEFAULT_BUDGET_DB, objective: str =
     if objective == "heard":
         choose_in = _heard_chooser(bands, shape_list, allowed, loss, g_p, g_n, listening_level_db)
     else:
-        choose_in = _snr_chooser(bands, shape_list, allowed, loss, h2, pts, weighting)
+        choose_in = _snr_chooser(bands, shape_list, allowed, loss, h2, weighting)
     best = choose_in(budget_db)
     choice = None if best is None else exact(*best)
     reason = None
-    if max(nothing.share_before.max(initial=0.0), 0.0) < HEARD_SHARE and objective == "heard":
+    if objective == "heard" and nothing.share_before.max(initial=0.0) < HEARD_SHARE:
         reason = (f"the hiss is not heard at the listening level ({listening_level_db:g} dB SPL for a full-scale "
                   f"sine): in no band is it audible in {100 * HEARD_SHARE:.0f} % of the time or more")
     elif choice is None:
@@ -346,12 +351,11 @@ def _heard_chooser(bands, shape_list, allowed, loss, g_p, g_n, listening_level_d
     return choose_in
 
 
-def _snr_chooser(bands, shape_list, allowed, loss, h2, pts, weighting):
+def _snr_chooser(bands, shape_list, allowed, loss, h2, weighting):
     from audition.weighting import power_gain
 
+    pts, width = bands.points()
     w = power_gain(weighting, pts)
-    k = len(pts) // len(bands.centres_hz)
-    width = _point_widths(bands, k)
     wp = np.interp(pts, bands.freqs_hz, np.maximum(bands.programme_psd, 0)) * width * w
     wn = np.interp(pts, bands.freqs_hz, np.maximum(bands.noise_psd, 0)) * width * w
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -367,12 +371,6 @@ def _snr_chooser(bands, shape_list, allowed, loss, h2, pts, weighting):
         return min(near, key=lambda c: (shape_list[c[0]].order, -c[1]))
 
     return choose_in
-
-
-def _point_widths(bands: Bands, k: int) -> np.ndarray:
-    ratio = bands.hi_hz / bands.lo_hz
-    frac = (np.arange(k) + 0.5) / k
-    return (bands.lo_hz[:, None] * ratio[:, None] ** frac[None, :] * np.log(ratio)[:, None] / k).reshape(-1)
 
 
 def _alternatives(choose_in, exact, choice, budget_db):

@@ -66,6 +66,36 @@ def band_centres(fraction: int = DEFAULT_FRACTION, lo_hz: float = DEFAULT_LOW_HZ
     return c[(hi > lo_hz * (1 + 1e-12)) & (lo < hi_hz * (1 - 1e-12))]
 
 
+def _bin_edges(freqs_hz: np.ndarray) -> np.ndarray:
+    """Edges of the bins as the band integration takes them: bin k covers f_k ± Δf/2, the end bins halved."""
+    df = freqs_hz[1] - freqs_hz[0]
+    return np.concatenate([[0.0], freqs_hz[:-1] + df / 2, [freqs_hz[-1]]])
+
+
+def _bands_below(fraction: int, lo_hz: float, top_hz: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centres and edges of the bands from ``lo_hz`` whose upper edge lies at or below ``top_hz``."""
+    c = band_centres(fraction, lo_hz, top_hz)
+    lo, hi = band_edges(c, fraction)
+    keep = hi <= top_hz * (1 + 1e-12)
+    return c[keep], lo[keep], hi[keep]
+
+
+def band_matrix(freqs_hz, fraction: int = DEFAULT_FRACTION, lo_hz: float = DEFAULT_LOW_HZ) -> np.ndarray:
+    """(bins, bands): a PSD row times it gives :func:`band_levels`'s band powers of that PSD.
+
+    Band integration is linear in the PSD, so entry (k, b) is the overlap of bin k with band b
+    (end bins at twice their density, as in :func:`_cumulative`); for a PSD per analysis segment
+    this is one matrix product instead of a loop of interpolations.
+    """
+    f = np.asarray(freqs_hz, dtype=float)
+    _, lo, hi = _bands_below(fraction, lo_hz, f[-1])
+    edges = _bin_edges(f)
+    overlap = np.clip(np.minimum(edges[1:, None], hi[None, :]) - np.maximum(edges[:-1, None], lo[None, :]), 0.0, None)
+    overlap[0] *= 2.0
+    overlap[-1] *= 2.0
+    return overlap
+
+
 def _cumulative(freqs_hz: np.ndarray, psd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Bin edges and the integral of the PSD up to each edge.
 
@@ -74,8 +104,7 @@ def _cumulative(freqs_hz: np.ndarray, psd: np.ndarray) -> tuple[np.ndarray, np.n
     one-sided density's end bins are not doubled), so the integral over 0 ..
     rate/2 is Σ P_k·Δf, the Parseval sum of scipy.signal.welch.
     """
-    df = freqs_hz[1] - freqs_hz[0]
-    edges = np.concatenate([[0.0], freqs_hz[:-1] + df / 2, [freqs_hz[-1]]])
+    edges = _bin_edges(freqs_hz)
     widths = np.diff(edges)
     dens = psd.copy()
     dens[0] *= 2.0
@@ -114,9 +143,7 @@ def band_levels(freqs_hz, psd, fraction: int = DEFAULT_FRACTION, *, lo_hz: float
         raise BadParameter(f"band_levels: {f.size} frequencies for a PSD of shape {p.shape!r}")
     nyq = f[-1]
     top = nyq if hi_hz is None else min(hi_hz, nyq)
-    c = band_centres(fraction, lo_hz, top)
-    lo, hi = band_edges(c, fraction)
-    c, lo, hi = c[hi <= top * (1 + 1e-12)], lo[hi <= top * (1 + 1e-12)], hi[hi <= top * (1 + 1e-12)]
+    c, lo, hi = _bands_below(fraction, lo_hz, top)
     flat = p.reshape(-1, f.size)
     out = np.empty((flat.shape[0], c.size))
     for i, row in enumerate(flat):

@@ -26,7 +26,7 @@ import numpy as np
 
 from audition.errors import BadInputFile, BadParameter
 
-from audition.survey.bands import DEFAULT_FRACTION, DEFAULT_LOW_HZ, _check_fraction, band_levels
+from audition.survey.bands import DEFAULT_FRACTION, DEFAULT_LOW_HZ, _check_fraction, band_levels, band_matrix
 from audition.survey.levels import SILENT_POWER, _LevelAccumulator
 from audition.survey.noise import (DEFAULT_MIN_NOISE_SECONDS, DEFAULT_MIN_SEPARATION_DB, DEFAULT_THRESHOLD_DB,
                                    NoiseConfidence, find_quiet_frames, noise_confidence, noise_from_clip,
@@ -234,7 +234,7 @@ def survey_blocks(blocks: Iterable, rate_hz: float, channels: int | None = None,
     acc = _LevelAccumulator(seg.freqs_hz)
     span_bounds = None if spans is None else span_frames(spans, rate_hz)
 
-    band_matrix = _band_matrix(seg.freqs_hz)
+    to_bands = band_matrix(seg.freqs_hz, 3)
     frame_bands = []
 
     def feed(block):
@@ -242,7 +242,7 @@ def survey_blocks(blocks: Iterable, rate_hz: float, channels: int | None = None,
             cls = None if span_bounds is None else classify_segments(i0, len(p), seg, span_bounds)
             acc.add(p, cls)
             live = p.sum(axis=1) * seg.df_hz > SILENT_POWER
-            frame_bands.append(p[live] @ band_matrix)
+            frame_bands.append(p[live] @ to_bands)
 
     feed(first)
     for block in it:
@@ -287,25 +287,6 @@ def survey_blocks(blocks: Iterable, rate_hz: float, channels: int | None = None,
                   rate_hz=float(rate_hz), channels=int(channels), frames=int(n_frames), nperseg=seg.nperseg,
                   fraction=int(fraction), margin_db=float(margin_db), crossover_hz=xo,
                   band_frames=np.concatenate(frame_bands) if frame_bands else None)
-
-
-def _band_matrix(freqs_hz: np.ndarray) -> np.ndarray:
-    """(bins, bands): a PSD row times it gives the one-third-octave band powers of :func:`band_levels`
-    (band integration is linear in the PSD, so the matrix is the band powers of each unit bin)."""
-    from audition.survey.bands import band_edges
-
-    f = np.asarray(freqs_hz, dtype=float)
-    probe = np.zeros((1, f.size))
-    c, _ = band_levels(f, probe, 3)
-    lo, hi = band_edges(c, 3)
-    df = f[1] - f[0]
-    # the bins as band_levels integrates them: bin k covers f_k ± df/2; the DC and Nyquist bins only
-    # their half inside 0 .. rate/2, at twice their density
-    edges = np.concatenate([[0.0], f[:-1] + df / 2, [f[-1]]])
-    overlap = np.clip(np.minimum(edges[1:, None], hi[None, :]) - np.maximum(edges[:-1, None], lo[None, :]), 0.0, None)
-    overlap[0] *= 2.0
-    overlap[-1] *= 2.0
-    return overlap
 
 
 def survey_array(data, rate_hz: float, *, block_frames: int = 65536, **kwargs) -> Survey:

@@ -11,7 +11,7 @@ Programme
     material: its one-third-octave band levels follow the simulated programme
     signal of IEC 60268-1:1985 clause 7, Table II (flat from 250 to 800 Hz,
     -11.9 dB at 10 kHz, -14.8 dB at 12.5 kHz, -18.2 dB at 16 kHz; the table's
-    values were taken from a secondary transcription, not the printed standard),
+    values were taken from a secondary copy, not the printed standard),
     times the medium's roll-off 1/(1 + (f/top)^8) in power above
     ``programme_top_hz`` (default 16 kHz, 24 dB per octave). That spectrum
     K·S(f)·R(f) is shared out between the parts of a small band, the shares

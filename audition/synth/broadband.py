@@ -7,8 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from audition.synth.params import PROGRAMME_PEAK, TABLE_SIZE, _EVENTS, _GLOBAL, _PHASES, _rng
-from audition.synth.dark import _Voice, _bright, _midi_hz, _pan_gains, _render_note, _schedule
+from audition.synth.params import PROGRAMME_PEAK, _EVENTS, _GLOBAL, _PHASES, _rng
+from audition.synth.dark import _Voice, _bright, _midi_hz, _pan_gains, _render_note, _schedule, voice_tables
 
 
 # ---------------------------------------------------------------------------
@@ -18,7 +18,7 @@ from audition.synth.dark import _Voice, _bright, _midi_hz, _pan_gains, _render_n
 #: IEC 60268-1:1985 clause 7, Table II: relative levels (dB) of the one-third-octave bands of the
 #: simulated programme signal, 20 Hz .. 20 kHz (the bands' exact centres are the base-10 ones of
 #: IEC 61260-1, 1000·10^(n/10), n = -17 .. 13). Not read from the printed standard: taken from a
-#: secondary transcription (an open-source acoustics library's table), agreeing with what we
+#: secondary copy (an open-source acoustics library's table), agreeing with what we
 #: recall of its shape (flat 250-800 Hz, about -12 dB at 10 kHz); tolerances there ±0.5 dB in
 #: the middle, ±1 dB from 31.5 Hz to 10 kHz, ±1.5 .. ±3 dB at the ends.
 IEC60268_1_TABLE_DB = (-13.5, -10.2, -7.4, -5.2, -3.5, -2.3, -1.4, -0.9, -0.5, -0.2, -0.1, 0.0, 0.0, 0.0, 0.0, 0.0,
@@ -352,14 +352,7 @@ class _Broadband:
             a = np.sqrt(2 * c * f0)
             bright = _bright(f)
             phases = _rng(self.p["seed"], _PHASES, v, m).uniform(0, 2 * np.pi, len(a))
-            out = []
-            for w in (a * (1 - bright), a * bright):
-                spec = np.zeros(TABLE_SIZE // 2 + 1, dtype=complex)
-                spec[1:len(a) + 1] = -0.5j * TABLE_SIZE * w * np.exp(1j * phases)
-                t = np.fft.irfft(spec, TABLE_SIZE)
-                out.append(np.append(t, t[0]))
-            bound = float(np.max(np.abs(out[0])) + np.max(np.abs(out[1])))
-            self.tables[key] = (out[0], out[1], bound)
+            self.tables[key] = voice_tables(a, bright, phases)
         return self.tables[key]
 
     # -- noise events ------------------------------------------------------------------

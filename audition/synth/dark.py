@@ -139,6 +139,22 @@ def _render_note(prog, note: _Note, i0: int, i1: int, normalise: bool) -> np.nda
     return x * env * (note.gain / bound if normalise else note.gain)
 
 
+def voice_tables(a: np.ndarray, bright: np.ndarray, phases: np.ndarray):
+    """One period of a voice's harmonics ``a`` split into a dull and a bright wavetable, and their peak bound.
+
+    Returns ``(dull, bright, bound)``: tables of TABLE_SIZE + 1 samples (the first repeated at the end,
+    for interpolation) and the sum of their peaks.
+    """
+    out = []
+    for w in (a * (1 - bright), a * bright):
+        spec = np.zeros(TABLE_SIZE // 2 + 1, dtype=complex)
+        # sin(2πkθ + φ) has rfft coefficient -j·(M/2)·e^{jφ} at bin k.
+        spec[1:len(a) + 1] = -0.5j * TABLE_SIZE * w * np.exp(1j * phases)
+        t = np.fft.irfft(spec, TABLE_SIZE)
+        out.append(np.append(t, t[0]))
+    return out[0], out[1], float(np.max(np.abs(out[0])) + np.max(np.abs(out[1])))
+
+
 class _Programme:
     """The dark programme: four voices of harmonic notes rolling off above ``programme_top_hz``."""
 
@@ -160,15 +176,7 @@ class _Programme:
             f = f0 * np.arange(1, len(a) + 1)
             bright = f * f / (f * f + _BRIGHT_HZ ** 2)
             phases = _rng(self.p["seed"], _PHASES, v, m).uniform(0, 2 * np.pi, len(a))
-            out = []
-            for w in (a * (1 - bright), a * bright):
-                spec = np.zeros(TABLE_SIZE // 2 + 1, dtype=complex)
-                # sin(2πkθ + φ) has rfft coefficient -j·(M/2)·e^{jφ} at bin k.
-                spec[1:len(a) + 1] = -0.5j * TABLE_SIZE * w * np.exp(1j * phases)
-                t = np.fft.irfft(spec, TABLE_SIZE)
-                out.append(np.append(t, t[0]))
-            bound = float(np.max(np.abs(out[0])) + np.max(np.abs(out[1])))
-            self.tables[key] = (out[0], out[1], bound)
+            self.tables[key] = voice_tables(a, bright, phases)
         return self.tables[key]
 
     def chunk(self, start: int, n: int) -> np.ndarray:
