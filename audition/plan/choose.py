@@ -120,7 +120,6 @@ class Plan:
     explanation: str
     warnings: tuple[str, ...]
     searched: int
-    bands_hz: np.ndarray = field(repr=False, compare=False)
 
     def to_dict(self) -> dict:
         return {
@@ -302,7 +301,7 @@ def plan(bands: Bands, *, budget_db: float = DEFAULT_BUDGET_DB, objective: str =
                           budget_db, objective, weighting)
     return Plan(choice, reason, best_compromise, alternatives, front, float(budget_db), objective, weighting,
                 listening_level_db, float(margin_db), crossover_hz, audible_hz, nothing, explanation,
-                tuple(warnings), searched, bands.centres_hz)
+                tuple(warnings), searched)
 
 
 def _shortening(c: Candidate) -> float:
