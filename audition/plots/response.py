@@ -56,7 +56,9 @@ def plot_response(design, path) -> None:
     title = f"low-pass f0 {f0:,.0f} Hz, order {design.order}"
     n_low = sum(s.kind == "lowpass" for s in design.sections)
     if design.alignment:
-        title += f", {design.alignment}"
+        title += f", {design.alignment.replace('-', '–').title()}"
+        if design.ripple_db:
+            title += f" ({design.ripple_db:g} dB ripple)"
     elif n_low > 1:
         title += f", a cascade of {n_low} sections"
     elif design.q:
@@ -89,7 +91,10 @@ def plot_response(design, path) -> None:
     ax3.legend(loc="lower left", fontsize=9)
     ax3.set_xlim(f[0], f[-1])
 
+    from audition.plots import audio_ticks
+
     for ax in (ax1, ax2, ax3):
+        audio_ticks(ax, f[0], f[-1])
         ax.grid(True, which="both", alpha=0.3)
         ax.axvline(f0, color="C1", lw=1, ls=":")
     # f0 named once, inside the top panel, on the side of the line with room for it
