@@ -82,6 +82,7 @@ class PlanSettings:
     orders: tuple[int, ...] = (1, 2, 3, 4, 5, 6, 7, 8)
     method: str = "bilinear"
     max_peak_db: float = 1.5
+    max_overshoot_pct: float = 15.0
     highpass_hz: float | None = None
     objective: str = "heard"
 
@@ -141,6 +142,7 @@ def plan_survey(survey, noise: NoiseReference | None = None, settings: PlanSetti
                      treble_from_hz=noise.treble_from_hz, margin_db=noise.margin_db,
                      listening_level_db=noise.listening_level_db, crossover_hz=survey.crossover_hz,
                      highpass_hz=settings.highpass_hz, max_peak_db=settings.max_peak_db,
+                     max_overshoot_pct=settings.max_overshoot_pct,
                      extra_warnings=plan.noise_warnings(survey))
 
 

@@ -49,3 +49,51 @@ def test_shape_peak_is_the_analog_maximum():
         s = shapes.Shape(2, ((1.0, q),), q=q)
         assert s.peak_db() == pytest.approx(20 * math.log10(q / math.sqrt(1 - 1 / (4 * q * q))), abs=1e-3)
     assert shapes.Shape(2, ((1.0, 0.5),), q=0.5).peak_db() == pytest.approx(0.0, abs=1e-9)
+
+
+def test_shape_overshoot_matches_the_textbook_step_responses():
+    # Step overshoot of the Butterworth low-pass, orders 2 to 8: 4.3, 8.2, 10.8, 12.8, 14.3, 15.4, 16.3 %;
+    # of the Bessel, under 1 % at every order (filter-design handbook tables, e.g. A. Zverev, "Handbook of
+    # Filter Synthesis", 1967; values from memory, hence the 0.2-point tolerance).
+    sh = [s for s in shapes.shapes() if s.alignment in ("butterworth", "bessel")]
+    sh.insert(0, shapes.Shape(2, ((1.0, 1 / math.sqrt(2)),), q=1 / math.sqrt(2)))
+    over = dict(zip([(s.order, s.alignment) for s in sh], shapes.overshoot_pct(sh)))
+    book = {2: 4.3, 3: 8.2, 4: 10.8, 5: 12.8, 6: 14.3, 7: 15.4, 8: 16.3}
+    assert over[(2, None)] == pytest.approx(book[2], abs=0.2)
+    for n in range(3, 9):
+        assert over[(n, "butterworth")] == pytest.approx(book[n], abs=0.2), n
+        assert 0.0 < over[(n, "bessel")] < 1.0, n
+
+
+def test_shape_overshoot_is_the_step_response_of_the_built_sections():
+    # Every shape of the search against its design's step response through scipy.signal.sosfilt (reference
+    # library), at f0 = rate/100 (the shape's figure is taken at rate/64; the two agree within 0.1 point).
+    sh = shapes.shapes()
+    for s, o in zip(sh, shapes.overshoot_pct(sh)):
+        d = s.design(480.0, 48000.0)
+        assert o == pytest.approx(d.overshoot_pct() or 0.0, abs=0.1), s.label
+
+
+def test_planner_never_chooses_a_shape_that_rings_more_than_allowed():
+    # Synthesised tape hiss under the broadband programme (seed 5); the cap is the planner's own setting.
+    from audition import synth
+    from audition.plan import plan
+    from audition.survey.onepass import survey_array
+
+    # The cap holds the shape's ringing, its sections slid down to f0 = rate/100 (near Nyquist the bilinear
+    # transform's zero at fs/2 adds a sample-rate overshoot of its own that is no ringing of the shape).
+    from audition import design
+
+    c = synth.synthesise(seconds=4.0, rate_hz=44100, channels=1, hiss_dbfs=-45.0, hiss="tape", seed=5,
+                         lead_in_seconds=1.0, programme_top_hz=7000.0)
+    s = survey_array(c.mix, 44100)
+    for cap in (2.0, 9.0, 15.0):
+        pl = plan(s.hearing_bands, max_overshoot_pct=cap)
+        for cand in [pl.choice, pl.best_compromise, *pl.alternatives]:
+            if cand is not None:
+                low = [x for x in cand.design.sections if x.kind == "lowpass"]
+                scale = 441.0 / min(x.f0_hz for x in low)
+                slid = design.from_sections([(x.f0_hz * scale, x.q) for x in low], 44100.0)
+                assert (slid.overshoot_pct() or 0.0) <= cap + 0.1, (cap, cand.label)
+    with pytest.raises(Exception, match="max-overshoot-pct"):
+        plan(s.hearing_bands, max_overshoot_pct=float("nan"))

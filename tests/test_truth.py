@@ -193,7 +193,10 @@ def test_choice_within_two_percent_of_an_exhaustive_search():
     b = s.hearing_bands
     pl = plan.plan(b, orders=(2, 4))
     assert pl.choice is not None
-    sh = [x for x in shapes.shapes((2, 4)) if x.peak_db() <= plan.DEFAULT_MAX_PEAK_DB + 1e-9]
+    sh = shapes.shapes((2, 4))
+    over = shapes.overshoot_pct(sh)
+    sh = [x for x, o in zip(sh, over)
+          if x.peak_db() <= plan.DEFAULT_MAX_PEAK_DB + 1e-9 and o <= plan.DEFAULT_MAX_OVERSHOOT_PCT + 1e-9]
     f0s = shapes.f0_grid(44100, points_per_octave=48)
     pts, w_p, w_n = b.grid()
     h2 = shapes.power_grid(sh, f0s, pts, 44100)

@@ -23,7 +23,7 @@ def parse_orders(text: str) -> tuple[int, ...]:
 
 
 #: The planning options that only mean something to a planner (--method and --highpass are the filter's own).
-PLAN_OPTIONS = ("budget_db", "objective", "weighting", "orders", "max_peak_db")
+PLAN_OPTIONS = ("budget_db", "objective", "weighting", "orders", "max_peak_db", "max_overshoot_pct")
 
 
 def add_plan_options(p, *, with_auto: bool = False) -> None:
@@ -52,6 +52,9 @@ def add_plan_options(p, *, with_auto: bool = False) -> None:
     g.add_argument("--max-peak-db", type=float, default=default(1.5), metavar="DB",
                    help="largest resonant peak or passband ripple a candidate may have (default 1.5 dB: Q up to "
                         "1.0 at order 2)")
+    g.add_argument("--max-overshoot-pct", type=float, default=default(15.0), metavar="PCT",
+                   help="largest step overshoot (ringing on transients) a candidate may have, percent of the step "
+                        "(default 15: every Bessel, Butterworth up to order 6)")
     if not with_auto:
         g.add_argument("--method", choices=("bilinear", "matched"), default="bilinear",
                        help="digitising method of the candidates (default bilinear)")
@@ -81,6 +84,7 @@ def settings_from_args(args):
 
     return PlanSettings(budget_db=pick("budget_db"), weighting=pick("weighting"), orders=tuple(pick("orders")),
                         method=pick("method"), max_peak_db=pick("max_peak_db"),
+                        max_overshoot_pct=pick("max_overshoot_pct"),
                         highpass_hz=getattr(args, "highpass", None), objective=pick("objective"))
 
 
@@ -128,8 +132,10 @@ def wrap(text: str, indent: str = "  ") -> str:
 
 
 def _row(c, pl) -> str:
+    from audition.plan.explain import nominal
+
     h = c.hiss_heard
-    at = "" if c.treble_loss_hz is None else f" at {c.treble_loss_hz / 1000:.1f} kHz"
+    at = "" if c.treble_loss_hz is None else f" at {nominal(c.treble_loss_hz)}"
     snr = c.snr_gain_db.get(pl.weighting)
     return (f"  {c.label:<48.48}{c.treble_loss_db:>6.2f} dB{at:<12}{h.reduction_pct:>5.0f} %"
             f"{'' if snr is None else f'{snr:>8.2f} dB':>11}")

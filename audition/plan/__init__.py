@@ -14,11 +14,12 @@ The planner's public names are importable from ``audition.plan``.
 
 from __future__ import annotations
 
-from audition.plan.choose import (DEFAULT_BUDGET_DB, DEFAULT_MAX_PEAK_DB, DEFAULT_OBJECTIVE, DEFAULT_ORDERS,
-                                  DEFAULT_WEIGHTING, OBJECTIVES, Candidate, Plan, judge,
+from audition.plan.choose import (DEFAULT_BUDGET_DB, DEFAULT_MAX_OVERSHOOT_PCT, DEFAULT_MAX_PEAK_DB,
+                                  DEFAULT_OBJECTIVE, DEFAULT_ORDERS, DEFAULT_WEIGHTING, OBJECTIVES, Candidate, Plan, judge,
                                   judge_nothing, plan)
 from audition.plan.explain import alternative_kind
 from audition.plan.noise_checks import noise_warnings
 
-__all__ = ["DEFAULT_BUDGET_DB", "DEFAULT_MAX_PEAK_DB", "DEFAULT_OBJECTIVE", "DEFAULT_ORDERS", "DEFAULT_WEIGHTING",
+__all__ = ["DEFAULT_BUDGET_DB", "DEFAULT_MAX_OVERSHOOT_PCT", "DEFAULT_MAX_PEAK_DB", "DEFAULT_OBJECTIVE",
+           "DEFAULT_ORDERS", "DEFAULT_WEIGHTING",
            "OBJECTIVES", "Candidate", "Plan", "alternative_kind", "judge", "judge_nothing", "noise_warnings", "plan"]

@@ -1,7 +1,8 @@
 """Choose the hiss filter by what is heard, or say that none is needed.
 
 The default objective (``"heard"``): of every candidate whose treble loss stays
-within the budget and whose resonant peak stays within ``max_peak_db``, take the
+within the budget, whose resonant peak stays within ``max_peak_db`` and whose step
+overshoot (its ringing) within ``max_overshoot_pct``, take the
 one that leaves the least hiss heard over the programme (:mod:`audition.plan.audible`).
 Near-ties (a heard hiss after the filter within 2 % of the best's: a loudness change
 that small is not heard, the difference limen for loudness being about 10 %, from memory)
@@ -44,10 +45,14 @@ import numpy as np
 from audition.errors import BadParameter
 from audition.plan.audible import (DEFAULT_LISTENING_LEVEL_DB, Bands, HissHeard, audible_bands, band_gains,
                                    check_listening_level, frame_groups, heard_after_columns, hiss_heard, treble_loss)
-from audition.plan.shapes import ALL_ORDERS, f0_grid, power_grid, shapes
+from audition.plan.shapes import ALL_ORDERS, f0_grid, overshoot_pct, power_grid, shapes
 
 DEFAULT_BUDGET_DB = 1.0
 DEFAULT_MAX_PEAK_DB = 1.5
+#: Largest step overshoot a candidate may have, percent: every Bessel and Linkwitz–Riley shape and the
+#: Butterworth ones up to order 6 (14.3 %) pass; steeper or peakier shapes ring audibly on transients
+#: near the cutoff, a "ping" on cymbals and consonants (engineering judgement, no source).
+DEFAULT_MAX_OVERSHOOT_PCT = 15.0
 DEFAULT_ORDERS = ALL_ORDERS
 DEFAULT_OBJECTIVE = "heard"
 OBJECTIVES = ("heard", "snr")
@@ -191,7 +196,7 @@ def _design_label(d) -> str:
 # ---------------------------------------------------------------------------
 
 
-def _check(budget_db, objective, weighting, max_peak_db, treble_from_hz, rate_hz, highpass_hz):
+def _check(budget_db, objective, weighting, max_peak_db, treble_from_hz, rate_hz, highpass_hz, max_overshoot_pct):
     from audition.weighting import check_name
 
     if objective not in OBJECTIVES:
@@ -201,6 +206,9 @@ def _check(budget_db, objective, weighting, max_peak_db, treble_from_hz, rate_hz
         raise BadParameter(f"budget-db={budget_db!r}: the treble-loss budget must be a positive number of dB")
     if not (isinstance(max_peak_db, (int, float)) and math.isfinite(max_peak_db) and max_peak_db >= 0):
         raise BadParameter(f"max-peak-db={max_peak_db!r}: must be a non-negative number of dB")
+    if not (isinstance(max_overshoot_pct, (int, float)) and math.isfinite(max_overshoot_pct)
+            and max_overshoot_pct >= 0):
+        raise BadParameter(f"max-overshoot-pct={max_overshoot_pct!r}: must be a non-negative percentage")
     nyq = rate_hz / 2.0
     if not (isinstance(treble_from_hz, (int, float)) and math.isfinite(treble_from_hz) and 0 < treble_from_hz < nyq):
         raise BadParameter(f"treble-from={treble_from_hz!r} Hz: must lie between 0 and Nyquist ({nyq:g} Hz)")
@@ -213,7 +221,8 @@ def plan(bands: Bands, *, budget_db: float = DEFAULT_BUDGET_DB, objective: str =
          weighting: str = DEFAULT_WEIGHTING, orders=DEFAULT_ORDERS, method: str = "bilinear",
          treble_from_hz: float = 2000.0, margin_db: float = 0.0,
          listening_level_db: float = DEFAULT_LISTENING_LEVEL_DB, crossover_hz: float | None = None,
-         highpass_hz: float | None = None, max_peak_db: float = DEFAULT_MAX_PEAK_DB, extra_warnings=()) -> Plan:
+         highpass_hz: float | None = None, max_peak_db: float = DEFAULT_MAX_PEAK_DB,
+         max_overshoot_pct: float = DEFAULT_MAX_OVERSHOOT_PCT, extra_warnings=()) -> Plan:
     """Search the candidates and choose one, or none (module notes).
 
     Parameters
@@ -231,16 +240,19 @@ def plan(bands: Bands, *, budget_db: float = DEFAULT_BUDGET_DB, objective: str =
         SPL at which a full-scale sine would play.
     max_peak_db : float
         Largest resonant peak (or Chebyshev ripple) a candidate may have, dB.
+    max_overshoot_pct : float
+        Largest step overshoot a candidate may have, percent (its ringing on transients).
     crossover_hz : float, optional
         The survey's crossover, for the explanation.
     """
     from audition.plan.explain import explain
 
     rate_hz = bands.rate_hz
-    _check(budget_db, objective, weighting, max_peak_db, treble_from_hz, rate_hz, highpass_hz)
+    _check(budget_db, objective, weighting, max_peak_db, treble_from_hz, rate_hz, highpass_hz, max_overshoot_pct)
     listening_level_db = check_listening_level(listening_level_db)
     shape_list = shapes(tuple(orders))
-    allowed = np.array([s.peak_db() <= max_peak_db + 1e-9 for s in shape_list])
+    allowed = (np.array([s.peak_db() <= max_peak_db + 1e-9 for s in shape_list])
+               & (overshoot_pct(shape_list) <= max_overshoot_pct + 1e-9))
     f0s = f0_grid(rate_hz)
     if highpass_hz is not None:
         f0s = f0s[f0s > highpass_hz]

@@ -29,7 +29,9 @@ def nominal(f_hz) -> str:
 def describe_q(design) -> str:
     """What the chosen shape does near the cutoff, in words a technician uses."""
     fig = design.figures()
-    if fig.peak_gain_db > 0.05:
+    if getattr(design, "ripple_db", None):
+        shape = f"ripples by {design.ripple_db:g} dB across the passband (Chebyshev)"
+    elif fig.peak_gain_db > 0.05:
         shape = f"lifts by {fig.peak_gain_db:.1f} dB near {khz(fig.peak_hz)} before it falls"
     else:
         shape = "stays flat up to the cutoff"
