@@ -35,7 +35,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from audition.errors import BadParameter, OutputRefused
+from audition.errors import BadInputFile, BadParameter, OutputRefused
 
 
 @dataclass(frozen=True)
@@ -66,11 +66,12 @@ class NoiseReference:
     margin_db: float = 0.0
     treble_from_hz: float = 2000.0
     listening_level_db: float = 100.0
+    accept_doubtful: bool = False
 
     def to_dict(self) -> dict:
         return {"spans": None if self.spans is None else [list(s) for s in self.spans], "clip": self.clip,
                 "margin_db": float(self.margin_db), "treble_from_hz": float(self.treble_from_hz),
-                "listening_level_db": float(self.listening_level_db)}
+                "listening_level_db": float(self.listening_level_db), "accept_doubtful": bool(self.accept_doubtful)}
 
 
 @dataclass(frozen=True)
@@ -97,10 +98,11 @@ class PlanSettings:
 # ---------------------------------------------------------------------------
 
 
-def survey_path(path, noise: NoiseReference | None = None, *, threads: bool = True):
+def survey_path(path, noise: NoiseReference | None = None, *, threads: bool = True, progress=None):
     """Survey the file at ``path`` against ``noise`` in one streaming pass (flat memory).
 
     With ``threads`` (default) a second thread reads ahead; without, all in this thread.
+    ``progress(frames_done, frames_total)``, optional, is called after each block.
 
     Returns
     -------
@@ -124,11 +126,42 @@ def survey_path(path, noise: NoiseReference | None = None, *, threads: bool = Tr
             raise BadParameter(f"{noise.clip}: the noise clip has {ninf.channels} channel(s), "
                                f"{path} has {inf.channels}; they must agree")
         noise_blocks, noise_rate = reader.blocks(noise.clip), ninf.rate_hz
-    return survey_blocks(reader.blocks(path, ahead=threads), inf.rate_hz, inf.channels, frames=inf.frames,
+    return survey_blocks(counted(reader.blocks(path, ahead=threads), inf.frames, progress), inf.rate_hz,
+                         inf.channels, frames=inf.frames,
                          noise_spans=None if noise.spans is None else list(noise.spans),
                          noise_blocks=noise_blocks, noise_rate_hz=noise_rate,
                          margin_db=noise.margin_db, name=str(path),
                          noise_name=str(noise.clip) if noise.clip else None)
+
+
+def check_evidence(path, survey, noise: NoiseReference) -> None:
+    """Refuse to plan on a doubtful noise reference found automatically, unless it was accepted.
+
+    Raises
+    ------
+    BadInputFile
+        The automatic search's reference has a "low" confidence grade: the spans it found,
+        why they are doubtful, and how to give a reference.
+    """
+    conf = survey.confidence
+    if survey.noise_source != "auto" or conf.grade != "low" or noise.accept_doubtful:
+        return
+    spans = ", ".join(f"{a:.2f}:{b:.2f}" for a, b in survey.spans[:4]) + (" ..." if len(survey.spans) > 4 else "")
+    raise BadInputFile(f"{path}: the noise reference found automatically is doubtful ({'; '.join(conf.doubts())}; "
+                       f"spans {spans or 'none'} s): --auto will not plan on it; give --noise-span START:END over "
+                       "hiss alone or --noise-clip FILE, or --accept-doubtful-noise to plan with these spans")
+
+
+def counted(blocks, total: int, progress=None):
+    """``blocks`` passed through, with ``progress(frames_done, total)`` after each one (when given)."""
+    if progress is None:
+        yield from blocks
+        return
+    done = 0
+    for b in blocks:
+        yield b
+        done += len(b)
+        progress(done, total)
 
 
 def plan_survey(survey, noise: NoiseReference | None = None, settings: PlanSettings | None = None):
@@ -241,10 +274,11 @@ class _PairedWelch:
 
 
 def measure_render(in_path, out_path, design, survey, noise: NoiseReference | None = None, *,
-                   threads: bool = True):
+                   threads: bool = True, progress=None):
     """Measure what a render did, from the input and output files (module notes).
 
     With ``threads`` (default) two threads read the files ahead; without, all in this thread.
+    ``progress(frames_done, frames_total)``, optional, is called after each block.
 
     Returns
     -------
@@ -274,7 +308,8 @@ def measure_render(in_path, out_path, design, survey, noise: NoiseReference | No
     if oinf.channels != ch or oinf.frames != survey.frames:
         raise BadInputFile(f"{out_path}: {oinf.frames} frames of {oinf.channels} channel(s); the input has "
                            f"{survey.frames} of {ch}, so the render cannot be measured against it")
-    for xb, yb in zip(reader.blocks(in_path, ahead=threads), reader.blocks(out_path, ahead=threads)):
+    for xb, yb in zip(counted(reader.blocks(in_path, ahead=threads), survey.frames, progress),
+                      reader.blocks(out_path, ahead=threads)):
         if len(xb) != len(yb):
             raise BadInputFile(f"{out_path}: its blocks do not line up with the input's; cannot measure the render")
         got_in = [(i0, p.copy()) for i0, p in seg_in.periodograms(xb)]
@@ -474,10 +509,15 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         noise = NoiseReference()
     settings = job_settings(spec=spec, auto=auto, noise=noise, subtype=subtype, dither=dither, seed=seed)
 
+    phases = [p for p, on in (("surveying", noise is not None), ("planning", auto is not None), ("rendering", True),
+                              ("measuring", noise is not None), ("writing the report", report_path is not None)) if on]
+    phase = _phase_announcer(progress, phases)
     survey = pl = None
     if noise is not None:
-        survey = survey_path(in_path, noise, threads=threads)
+        survey = survey_path(in_path, noise, threads=threads, progress=phase("surveying"))
     if auto is not None:
+        phase("planning")
+        check_evidence(in_path, survey, noise)
         pl = plan_survey(survey, noise, auto)
         if pl.choice is None:
             return _no_filter(in_path, pl, survey, settings, report_path, provenance)
@@ -498,12 +538,13 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     record = jsonable(record)
 
     r = render_file(in_path, out_path, d, subtype=subtype, dither=dither, seed=seed, overwrite=overwrite,
-                    progress=progress, record_extra=record, threads=threads)
+                    progress=phase("rendering"), record_extra=record, threads=threads)
     try:
         out = render_summary(r, d)
         out.update(record)
         if survey is not None:
-            measured = measure_render(in_path, out_path, d, survey, noise, threads=threads)
+            measured = measure_render(in_path, out_path, d, survey, noise, threads=threads,
+                                      progress=phase("measuring"))
             out["measured"] = jsonable(measured)
             out["warnings"] = list(pl.warnings) if pl is not None else _survey_warnings(survey)
             sidecar = _read_json(side_path)
@@ -512,6 +553,7 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         if report_path is not None:
             from audition import report
 
+            phase("writing the report")
             report.write(report_path, report.render_page(out, _read_json(side_path), survey, pl, d))
             out["report"] = report_path
     except BaseException:
@@ -519,6 +561,22 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         _remove_quietly(out_path, side_path)
         raise
     return jsonable(out)
+
+
+def _phase_announcer(progress, phases):
+    """``phase(name)`` -> the progress callable for that phase of a job.
+
+    A ``progress`` with a ``phase(name, index, count)`` method is told each phase as it
+    starts (a bar can then show "[2/4] rendering"); a plain callable is used for the
+    rendering alone, as before.
+    """
+    def phase(name):
+        announce = getattr(progress, "phase", None)
+        if announce is not None:
+            announce(name, phases.index(name) + 1, len(phases))
+            return progress
+        return progress if name == "rendering" else None
+    return phase
 
 
 def _no_filter(in_path, pl, survey, settings, report_path, provenance) -> dict:

@@ -29,7 +29,7 @@ def add_parser(sub) -> None:
     add_filter_options(p)
     add_source_options(p, auto_help="plan each clip by itself (planning options below)",
                        title="where the filter comes from (a manifest row's preset or plan overrides it for its clip)")
-    add_noise_options(p)
+    add_noise_options(p, auto=True)
     out = p.add_argument_group("output")
     out.add_argument("--subtype", metavar="NAME", help="output encoding for every clip (default: each input's)")
     out.add_argument("--no-dither", dest="dither", action="store_false",

@@ -16,7 +16,8 @@ def parse_span(text: str) -> tuple[float, float]:
         raise argparse.ArgumentTypeError(f"{text!r}: a noise span is START:END in seconds, e.g. 0.2:1.5") from None
 
 
-def add_noise_options(parser: argparse.ArgumentParser) -> None:
+def add_noise_options(parser: argparse.ArgumentParser, *, auto: bool = False) -> None:
+    """The noise-reference options; ``auto`` for a command with --auto (adds --accept-doubtful-noise)."""
     g = parser.add_argument_group("noise reference", "where the hiss alone is heard; found automatically "
                                   "from the quietest frames when neither option is given")
     g.add_argument("--noise-span", action="append", type=parse_span, metavar="START:END",
@@ -31,6 +32,10 @@ def add_noise_options(parser: argparse.ArgumentParser) -> None:
                    help="sound pressure level (dB SPL) at which a full-scale sine would play: what is heard "
                         "depends on it (default 100, so programme near -20 dBFS plays near 80 dB SPL; common "
                         "practice for calibrated monitoring, not a standard)")
+    if auto:
+        g.add_argument("--accept-doubtful-noise", action="store_true",
+                       help="with --auto, plan even when the noise reference found automatically is doubtful "
+                            "(confidence low); without it --auto stops and says which spans it found")
 
 
 def noise_from_args(args):
@@ -41,7 +46,8 @@ def noise_from_args(args):
     return NoiseReference(spans=None if not spans else tuple(tuple(s) for s in spans),
                           clip=getattr(args, "noise_clip", None) or None,
                           margin_db=getattr(args, "margin_db", 0.0), treble_from_hz=getattr(args, "treble_from", 2000.0),
-                          listening_level_db=getattr(args, "listening_level", 100.0))
+                          listening_level_db=getattr(args, "listening_level", 100.0),
+                          accept_doubtful=bool(getattr(args, "accept_doubtful_noise", False)))
 
 
 def gave_noise(args) -> bool:

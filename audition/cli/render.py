@@ -27,7 +27,7 @@ def add_parser(sub) -> None:
     add_filter_options(p)
     add_source_options(p, auto_help="survey the input, plan the filter and render it in one go (the plan goes "
                        "into the sidecar); --method and --highpass then apply to every candidate")
-    add_noise_options(p)
+    add_noise_options(p, auto=True)
     out = p.add_argument_group("output")
     out.add_argument("--subtype", metavar="NAME", help=f"output encoding, one of {', '.join(SUBTYPES)} "
                      "(default: the input's)")
@@ -45,12 +45,23 @@ def add_parser(sub) -> None:
 
 
 class ProgressBar:
-    """A one-line bar on stderr, redrawn at most ten times a second."""
+    """A one-line bar on stderr, redrawn at most ten times a second, with the time left.
+
+    A job of several phases (survey, plan, render, measure, report) calls :meth:`phase`
+    as each starts: the bar then reads "[2/5] rendering" and starts again from zero.
+    """
 
     def __init__(self, label: str, stream=None, width: int = 30):
         self.label, self.stream, self.width = label, stream or sys.stderr, width
         self.t0 = time.perf_counter()
         self._last = 0.0
+        self._shown = 0
+
+    def phase(self, name: str, index: int, count: int) -> None:
+        self.label = f"[{index}/{count}] {name}"
+        self.t0 = time.perf_counter()
+        self._last = 0.0
+        self._draw(f"{self.label} ...")
 
     def __call__(self, done: int, total: int) -> None:
         now = time.perf_counter()
@@ -59,12 +70,29 @@ class ProgressBar:
         self._last = now
         frac = min(1.0, done / total) if total else 1.0
         fill = int(round(frac * self.width))
-        self.stream.write(f"\r{self.label} [{'#' * fill}{'.' * (self.width - fill)}] {frac:6.1%}")
+        left = ""
+        if 0.02 < frac < 1.0 and now - self.t0 > 1.0:
+            left = f"  {hms((now - self.t0) * (1.0 - frac) / frac)} left"
+        self._draw(f"{self.label} [{'#' * fill}{'.' * (self.width - fill)}] {frac:6.1%}{left}")
+
+    def _draw(self, text: str) -> None:
+        pad = max(0, self._shown - len(text))
+        self.stream.write("\r" + text + " " * pad)
         self.stream.flush()
+        self._shown = len(text)
 
     def close(self) -> None:
-        self.stream.write("\r" + " " * (len(self.label) + self.width + 12) + "\r")
+        self.stream.write("\r" + " " * self._shown + "\r")
         self.stream.flush()
+        self._shown = 0
+
+
+def hms(seconds: float) -> str:
+    """A duration as h:mm:ss (or m:ss under an hour), rounded to the second."""
+    s = int(round(max(0.0, seconds)))
+    h, rem = divmod(s, 3600)
+    m, s = divmod(rem, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"
 
 
 def _clock(seconds: float) -> str:
@@ -103,7 +131,9 @@ def _figures_lines(j: dict) -> list[str]:
     if j.get("plan") and j["plan"].get("choice"):
         lines += ["", f"  f0 chosen by --auto: {j['plan']['choice']['label']}"]
     if j.get("plan") and j["plan"].get("explanation"):
-        lines += ["", "  chosen by --auto: " + j["plan"]["explanation"]]
+        from audition.cli.plan import wrap
+
+        lines += ["", wrap("why: " + j["plan"]["explanation"])]
     pr, me = j.get("predicted"), j.get("measured")
     if pr and me:
         lines += ["", f"  {'':<42}{'predicted':>11}{'measured':>11}"]

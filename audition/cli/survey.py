@@ -60,15 +60,7 @@ def noise_warnings(s) -> list:
     conf = s.confidence
     out = []
     if conf.grade == "low":
-        why = []
-        if conf.separation_db is not None and conf.separation_db < 10:
-            why.append(f"only {conf.separation_db:.1f} dB below the programme")
-        if conf.level_spread_db > 1.0:
-            why.append(f"its level wanders by {conf.level_spread_db:.1f} dB")
-        if conf.noise_seconds < 0.5:
-            why.append(f"only {conf.noise_seconds:.2f} s long")
-        if conf.shape_spread_db is not None and conf.shape_spread_db > 3.0:
-            why.append(f"its spectrum changes by {conf.shape_spread_db:.1f} dB")
+        why = conf.doubts()
         where = {"auto": "the spans found", "spans": "the given spans", "clip": "the noise clip"}[s.noise_source]
         out.append("the noise reference is doubtful (" + ("; ".join(why) or "low confidence") + "): listen to "
                    f"{where}; if they hold programme, give --noise-span START:END over hiss alone "

@@ -84,6 +84,21 @@ class NoiseConfidence:
     def to_dict(self) -> dict:
         return {k: getattr(self, k) for k in self.__dataclass_fields__}
 
+    def doubts(self) -> list[str]:
+        """Why a "low" grade is low, in words (empty for "high" and "medium")."""
+        if self.grade != "low":
+            return []
+        why = []
+        if self.separation_db is not None and self.separation_db < 10:
+            why.append(f"only {self.separation_db:.1f} dB below the programme")
+        if self.level_spread_db > 1.0:
+            why.append(f"its level wanders by {self.level_spread_db:.1f} dB")
+        if self.noise_seconds < 0.5:
+            why.append(f"only {self.noise_seconds:.2f} s long")
+        if self.shape_spread_db is not None and self.shape_spread_db > 3.0:
+            why.append(f"its spectrum changes by {self.shape_spread_db:.1f} dB")
+        return why or ["low confidence"]
+
     def describe(self) -> str:
         """One line for a report, e.g. "high: 31.2 dB below the programme, 0.9 s (9 % of the file), …"."""
         parts = [f"{self.grade}:"]
