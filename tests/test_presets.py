@@ -114,3 +114,27 @@ def test_second_order_butterworth_spec_has_q_of_alignment():
     # Alignment definition: second-order Butterworth Q = 1/sqrt(2) (common practice, no source).
     spec = presets.FilterSpec.from_design(design.lowpass(9000, 48000), "b2")
     assert spec.q == pytest.approx(1 / math.sqrt(2), abs=1e-12)
+
+
+def test_bessel_preset_note_states_what_the_digital_filter_keeps():
+    # The open-reel preset's note gives the digital step overshoot at 44.1 and 48 kHz and the spread of its
+    # delay from 0 to 10 kHz. Recomputed here: the overshoot from the sections' step response through
+    # scipy.signal.sosfilt, the delay from scipy.signal.group_delay (reference library).
+    import re
+
+    import scipy.signal as ss
+
+    spec = presets.load(presets.bundled_folder() / "open-reel-19cms.toml")
+    assert "transients clean" not in spec.note
+    stated = {float(r): float(p) for p, r in re.findall(r"([\d.]+) % at ([\d.]+) kHz", spec.note)}
+    assert set(stated) == {44.1, 48.0, 96.0}
+    for khz, pct in stated.items():
+        d = presets.check_design(spec, khz * 1000.0)
+        step = ss.sosfilt(d.sos, np.ones(4096))
+        assert (step.max() / step[-1] - 1) * 100 == pytest.approx(pct, abs=0.05), khz
+    limit_us = float(re.search(r"within (\d+) microseconds from 0 to 10 kHz", spec.note).group(1))
+    for rate in (44100.0, 48000.0):
+        d = presets.check_design(spec, rate)
+        f = np.linspace(1.0, 10000.0, 2000)
+        _, gd = ss.group_delay(ss.sos2tf(d.sos), w=f, fs=rate)
+        assert (gd.max() - gd.min()) / rate * 1e6 <= limit_us, rate
