@@ -99,7 +99,7 @@ def format_report(path, r: dict) -> str:
         g = p["snr_gain_db"]
         h = p["hiss_heard"]
         cut = (f"{p['treble_loss_db']:.2f} dB, the largest cut where the programme is heard"
-               + (f" (in the {p['treble_loss_hz'] / 1000:.1f} kHz band)" if p["treble_loss_hz"] else ""))
+               + (f" (in the {nominal(p['treble_loss_hz'])} band)" if p["treble_loss_hz"] else ""))
         lines += [
             "",
             "  with the filter:",
@@ -116,6 +116,12 @@ def format_report(path, r: dict) -> str:
     return "\n".join(lines)
 
 
+def nominal(f_hz) -> str:
+    from audition.plan.explain import nominal as _nominal
+
+    return _nominal(f_hz)
+
+
 def _signed(v) -> str:
     return "—" if v is None else f"{v:+.2f}"
 
@@ -128,15 +134,15 @@ def _heard_lines(r: dict) -> list[str]:
     lines = ["", f"  at {r['listening_level_db']:g} dB SPL for a full-scale sine (--listening-level):"]
     if heard:
         top = max(heard, key=lambda fx: fx[1])
-        lines.append(f"    the hiss adds {h['sone']:.2f} sone on average; it is heard in "
-                     f"{heard[0][0] / 1000:.2g}–{heard[-1][0] / 1000:.3g} kHz, most often in the "
-                     f"{top[0] / 1000:.3g} kHz band ({100 * top[1]:.0f} % of the time)")
+        lines.append(f"    the hiss adds {h['sone']:.2f} sone on average; it is heard in the bands from "
+                     f"{nominal(heard[0][0])} to {nominal(heard[-1][0])}, most often in the "
+                     f"{nominal(top[0])} band ({100 * top[1]:.0f} % of the time)")
     else:
         lines.append(f"    the hiss is not heard over the programme: under 5 % of the time in every band "
                      f"({h['sone']:.2f} sone on average)")
     hb = r["programme"]["heard_bands_hz"]
     lines.append("    the programme is heard above the hiss (loudest tenth of the time) "
-                 + (f"up to the {hb[-1] / 1000:.3g} kHz band" if hb else "in no band"))
+                 + (f"up to the {nominal(hb[-1])} band" if hb else "in no band"))
     return lines
 
 
