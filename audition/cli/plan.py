@@ -126,9 +126,13 @@ def wrap(text: str, indent: str = "  ") -> str:
     import shutil
     import textwrap
 
+    import re
+
     width = max(40, min(100, shutil.get_terminal_size((100, 24)).columns))
-    return textwrap.fill(text, width=width, initial_indent=indent, subsequent_indent=indent,
-                         break_long_words=False, break_on_hyphens=False)
+    # a number stays on the line of its unit ("26 %", "8.0 kHz", "0.90 dB", "1.09 sone")
+    glued = re.sub(r"(\d) (%|k?Hz|dB|sone)(?!\w)", "\\1\0\\2", text)
+    return textwrap.fill(glued, width=width, initial_indent=indent, subsequent_indent=indent,
+                         break_long_words=False, break_on_hyphens=False).replace("\0", " ")
 
 
 def _row(c, pl) -> str:
