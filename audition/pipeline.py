@@ -496,14 +496,17 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
     in_path, out_path = os.fspath(in_path), os.fspath(out_path)
     side_path = sidecar_path(out_path)
     # Refuse every output before reading anything: a job fails early or not at all.
-    writer.check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
-    writer.check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
+    # every file the job reads: the recording, the noise clip, the plan or preset file
+    inputs = [in_path] + [p for p in (noise.clip if noise is not None else None,
+                                      getattr(spec, "source", None)) if p]
+    writer.check_output_path(out_path, inputs=inputs, overwrite=overwrite)
+    writer.check_output_path(side_path, inputs=inputs, overwrite=overwrite)
     if report_path is not None:
         report_path = os.fspath(report_path)
         for other in (out_path, side_path):
             if writer.same_file(report_path, other) or os.path.abspath(report_path) == os.path.abspath(other):
                 raise OutputRefused(f"{report_path!r}: the report would overwrite {other!r}; name another file")
-        writer.check_output_path(report_path, inputs=[in_path], overwrite=overwrite)
+        writer.check_output_path(report_path, inputs=inputs, overwrite=overwrite)
     info = reader.info(in_path)
     if noise is None and (auto is not None or report_path is not None):
         noise = NoiseReference()

@@ -110,8 +110,22 @@ def output_subtype(reader_subtype: str, subtype: str | None, fmt: str, in_path: 
     if subtype is not None:
         return subtype
     if reader_subtype not in OUTPUT_SUBTYPES:
+        from audition.io.formats import check_output_subtype
+
+        fits = []
+        for st in OUTPUT_SUBTYPES:
+            try:
+                check_output_subtype(st, fmt, in_path)
+                fits.append(st)
+            except BadParameter:
+                pass
+        if not fits:
+            # OGG, MP3...: the output keeps the input's container, and audition writes none of its encodings
+            raise BadInputFile(f"{in_path!r}: its {fmt} {reader_subtype} encoding is read but cannot be written, and "
+                               "the output keeps the input's container; decode the input to a WAV or FLAC file first "
+                               "(no further loss) and render that")
         raise BadInputFile(f"{in_path!r}: its {fmt} {reader_subtype} encoding is read but not written by audition; "
-                           f"give --subtype ({', '.join(OUTPUT_SUBTYPES)})")
+                           f"give --subtype ({', '.join(fits)})")
     return reader_subtype
 
 

@@ -8,6 +8,7 @@ import time
 
 from audition.cli.filteropts import add_filter_options, add_source_options, filter_source
 from audition.cli.noiseopts import add_noise_options
+from audition.cli.values import SEED, number
 
 HELP = "render a whole set of clips (folder, pattern or manifest) in parallel, with one report for the set"
 #: Report name under OUTDIR when --report is not given (".csv" and ".json" are added).
@@ -34,7 +35,7 @@ def add_parser(sub) -> None:
     out.add_argument("--subtype", metavar="NAME", help="output encoding for every clip (default: each input's)")
     out.add_argument("--no-dither", dest="dither", action="store_false",
                      help="round integer outputs without TPDF dither (not advised)")
-    out.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the dither (default 0)")
+    out.add_argument("--seed", type=SEED, default=0, metavar="N", help="seed of the dither (default 0)")
     out.add_argument("--resume", action="store_true",
                      help="skip clips whose output exists with a sidecar of the same input bytes (SHA-256) and "
                           "settings; render the others again, replacing what does not match")
@@ -49,7 +50,8 @@ def add_parser(sub) -> None:
     run_g.add_argument("--cluster", metavar="ADDRESS",
                        help="run on an existing Dask distributed cluster (e.g. tcp://10.0.0.5:8786); every worker "
                             "must see SOURCES and OUTDIR at the same paths (pip install 'audition[cluster]')")
-    run_g.add_argument("--cluster-timeout", type=float, default=10.0, metavar="SECONDS",
+    run_g.add_argument("--cluster-timeout", type=number(0.0, 86400.0, lo_open=True, unit="s"), default=10.0,
+                       metavar="SECONDS",
                        help="how long to wait for the cluster's scheduler (default 10)")
     rep = p.add_argument_group("report")
     rep.add_argument("--report", metavar="FILE", help=f"report path: FILE.csv and FILE.json (default "
@@ -174,6 +176,40 @@ def format_summary(result, paths) -> str:
     return "\n".join(lines)
 
 
+def _check_side_outputs(args, jobs, report_path):
+    """Refuse a report or picture that is one of the batch's inputs, not a plain file, or exists.
+
+    An existing one is replaced with --overwrite or --resume (a resumed batch rewrites its report).
+    Returns the --plot :class:`~audition.io.guard.Target` (None without --plot).
+    """
+    import os
+
+    from audition.batch.report import report_paths
+    from audition.errors import OutputRefused
+    from audition.io import guard
+
+    inputs = []
+    for job in jobs:
+        noise = getattr(job, "noise", None)
+        inputs += [job.input, getattr(noise, "clip", None), getattr(getattr(job, "spec", None), "source", None) or None]
+    inputs = list(dict.fromkeys(p for p in inputs if p))
+    replace = bool(args.overwrite or args.resume)
+    csv_path, json_path = report_paths(report_path)
+    outdir_made = os.path.isdir(args.outdir)
+    for path, what in ((csv_path, "report"), (json_path, "report"), (args.plot, "--plot")):
+        if path is None or not (outdir_made or os.path.isdir(os.path.dirname(os.path.abspath(path)))):
+            continue  # below an OUTDIR not made yet: nothing there to collide with
+        guard.check_output(path, inputs=inputs, overwrite=replace, what=what)
+    guard.check_distinct([csv_path, json_path, args.plot])
+    outputs = {os.path.realpath(job.output) for job in jobs}
+    for path in (csv_path, json_path, args.plot):
+        if path is not None and os.path.realpath(path) in outputs:
+            raise OutputRefused(f"{path!r}: is also a clip's output; name the report and the picture differently")
+    if args.plot is None:
+        return None
+    return guard.Target(args.plot, inputs=inputs, overwrite=replace, what="--plot", check=False)
+
+
 def run(args) -> int:
     import os
 
@@ -197,6 +233,7 @@ def run(args) -> int:
         batch.check_report_path(report_path, args.outdir)
     if args.plot:
         batch.check_plot_path(args.plot, args.outdir)
+    plot = _check_side_outputs(args, jobs, report_path)
     client = batch.connect(args.cluster, args.cluster_timeout) if args.cluster else None
     try:
         # every check has passed: from here on things are written
@@ -219,7 +256,7 @@ def run(args) -> int:
         from audition.plots.batch import plot_batch
 
         os.makedirs(os.path.dirname(os.path.abspath(args.plot)), exist_ok=True)  # --plot below OUTDIR
-        plot_batch(result, args.plot, weighting=getattr(args, "weighting", None) or "itu468",
+        plot_batch(result, plot, weighting=getattr(args, "weighting", None) or "itu468",
                    title=f"audition batch: {' '.join(args.sources)} -> {args.outdir}",
                    budget_db=auto.budget_db if auto is not None else None)
     if args.json:

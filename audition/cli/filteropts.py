@@ -12,7 +12,11 @@ from __future__ import annotations
 
 import argparse
 
+from audition.cli.values import FINITE
 from audition.errors import BadParameter
+
+#: Kept equal to audition.design.checks.MAX_GAIN_DB (tests check it), so the help needs no numpy import.
+MAX_GAIN_DB = 60.0
 
 ALIGNMENT_CHOICES = ("butterworth", "bessel", "linkwitz-riley", "chebyshev")
 METHOD_CHOICES = ("bilinear", "matched")
@@ -22,29 +26,30 @@ def parse_section(text: str) -> tuple[float, float | None]:
     """``"F0:Q"`` -> (f0_hz, q); ``"F0"`` alone is a first-order section."""
     f0_text, _, q_text = text.partition(":")
     try:
-        f0 = float(f0_text)
-        q = float(q_text) if q_text else None
-    except ValueError:
+        f0 = FINITE(f0_text)
+        q = FINITE(q_text) if q_text else None
+    except argparse.ArgumentTypeError as exc:
         raise argparse.ArgumentTypeError(f"{text!r}: a section is F0:Q in Hz and plain number (e.g. 9000:0.707), "
-                                         "or F0 alone for a first-order section") from None
+                                         f"or F0 alone for a first-order section ({exc})") from None
     return f0, q
 
 
 def add_filter_options(parser: argparse.ArgumentParser, *, title: str = "filter") -> argparse._ArgumentGroup:
     g = parser.add_argument_group(title, "a low-pass: --f0 with --q (second order), or --order with --alignment, "
                                          "or explicit --section F0:Q cascades")
-    g.add_argument("--f0", type=float, metavar="HZ", help="cutoff (natural frequency f0) in Hz")
-    g.add_argument("--q", type=float, metavar="Q", help="Q of a second-order low-pass (default 0.7071, Butterworth)")
+    g.add_argument("--f0", type=FINITE, metavar="HZ", help="cutoff (natural frequency f0) in Hz")
+    g.add_argument("--q", type=FINITE, metavar="Q", help="Q of a second-order low-pass (default 0.7071, Butterworth)")
     g.add_argument("--order", type=int, default=2, metavar="N", help="filter order (default 2)")
     g.add_argument("--alignment", choices=ALIGNMENT_CHOICES,
                    help="named alignment for --order (Butterworth, Bessel and Chebyshev are -3.01 dB at f0, "
                         "Linkwitz-Riley -6.02 dB)")
-    g.add_argument("--ripple-db", type=float, metavar="DB",
+    g.add_argument("--ripple-db", type=FINITE, metavar="DB",
                    help="passband ripple of the Chebyshev (type I) alignment, dB (needed with it)")
     g.add_argument("--section", action="append", type=parse_section, metavar="F0:Q",
                    help="one second-order section (repeat for a cascade); F0 alone is first order")
-    g.add_argument("--gain-db", type=float, default=0.0, metavar="DB", help="passband gain H0 in dB (default 0)")
-    g.add_argument("--highpass", type=float, metavar="HZ", help="add a second-order rumble high-pass at HZ")
+    g.add_argument("--gain-db", type=FINITE, default=0.0, metavar="DB",
+                   help=f"passband gain H0 in dB, within +-{MAX_GAIN_DB:g} (default 0)")
+    g.add_argument("--highpass", type=FINITE, metavar="HZ", help="add a second-order rumble high-pass at HZ")
     # None marks "not given", so a --method mixed with --plan/--preset is caught, not silently dropped
     g.add_argument("--method", choices=METHOD_CHOICES,
                    help="digitising method: prewarped bilinear (default) or magnitude-matched")

@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import math
+
+from audition.cli.values import FINITE, number
 
 
 def parse_span(text: str) -> tuple[float, float]:
@@ -11,9 +14,13 @@ def parse_span(text: str) -> tuple[float, float]:
     try:
         if not sep:
             raise ValueError
-        return float(a), float(b)
+        start, end = float(a), float(b)
+        if not (math.isfinite(start) and math.isfinite(end)):  # the order and the file's length are checked later
+            raise ValueError
+        return start, end
     except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r}: a noise span is START:END in seconds, e.g. 0.2:1.5") from None
+        raise argparse.ArgumentTypeError(f"{text!r}: a noise span is START:END in finite seconds, "
+                                         "e.g. 0.2:1.5") from None
 
 
 def add_noise_options(parser: argparse.ArgumentParser, *, auto: bool = False) -> None:
@@ -23,12 +30,12 @@ def add_noise_options(parser: argparse.ArgumentParser, *, auto: bool = False) ->
     g.add_argument("--noise-span", action="append", type=parse_span, metavar="START:END",
                    help="a stretch of hiss alone, in seconds (repeatable), e.g. tape leader before the music")
     g.add_argument("--noise-clip", metavar="FILE", help="a separate noise-only recording (leader, run-out groove)")
-    g.add_argument("--margin-db", type=float, default=0.0, metavar="DB",
+    g.add_argument("--margin-db", type=number(-60.0, 60.0, unit="dB"), default=0.0, metavar="DB",
                    help="the programme counts as heard in a band where it stands this far above the hiss "
                         "(default 0); the crossover likewise")
-    g.add_argument("--treble-from", type=float, default=2000.0, metavar="HZ",
+    g.add_argument("--treble-from", type=FINITE, default=2000.0, metavar="HZ",
                    help="lowest band whose cut counts as treble loss (default 2000 Hz)")
-    g.add_argument("--listening-level", type=float, default=100.0, metavar="DB",
+    g.add_argument("--listening-level", type=number(0.0, 140.0, unit="dB SPL"), default=100.0, metavar="DB",
                    help="sound pressure level (dB SPL) at which a full-scale sine would play: what is heard "
                         "depends on it (default 100, so programme near -20 dBFS plays near 80 dB SPL; common "
                         "practice for calibrated monitoring, not a standard)")

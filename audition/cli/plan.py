@@ -39,7 +39,9 @@ def add_plan_options(p, *, with_auto: bool = False) -> None:
     def default(value):
         return None if with_auto else value
 
-    g.add_argument("--budget-db", type=float, default=default(1.0), metavar="B",
+    from audition.cli.values import FINITE
+
+    g.add_argument("--budget-db", type=FINITE, default=default(1.0), metavar="B",
                    help="treble-loss budget: the largest cut (dB) the filter may make in any one-third-octave band "
                         "where the programme is heard (default 1.0)")
     g.add_argument("--objective", choices=("heard", "snr"), default=default("heard"),
@@ -49,16 +51,16 @@ def add_plan_options(p, *, with_auto: bool = False) -> None:
                    help="the weighting of --objective snr (default itu468)")
     g.add_argument("--orders", type=parse_orders, default=default((1, 2, 3, 4, 5, 6, 7, 8)), metavar="1,2,4",
                    help="filter orders to search (default 1 to 8)")
-    g.add_argument("--max-peak-db", type=float, default=default(1.5), metavar="DB",
+    g.add_argument("--max-peak-db", type=FINITE, default=default(1.5), metavar="DB",
                    help="largest resonant peak or passband ripple a candidate may have (default 1.5 dB: Q up to "
                         "1.0 at order 2)")
-    g.add_argument("--max-overshoot-pct", type=float, default=default(15.0), metavar="PCT",
+    g.add_argument("--max-overshoot-pct", type=FINITE, default=default(15.0), metavar="PCT",
                    help="largest step overshoot (ringing on transients) a candidate may have, percent of the step "
                         "(default 15: every Bessel, Butterworth up to order 6)")
     if not with_auto:
         g.add_argument("--method", choices=("bilinear", "matched"), default="bilinear",
                        help="digitising method of the candidates (default bilinear)")
-        g.add_argument("--highpass", type=float, metavar="HZ", help="add a rumble high-pass at HZ to every candidate")
+        g.add_argument("--highpass", type=FINITE, metavar="HZ", help="add a rumble high-pass at HZ to every candidate")
 
 
 def add_parser(sub) -> None:
@@ -69,7 +71,20 @@ def add_parser(sub) -> None:
     p.add_argument("--save", metavar="FILE.toml", help="write the choice as a plan file for render --plan")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE.png", help="draw the trade-off and the chosen filter over the spectra")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --save or --plot file (never IN "
+                   "or the noise clip)")
     p.set_defaults(run=run)
+
+
+def check_file_rate(path, rate_hz: float) -> None:
+    """Refuse a file at a rate no filter can be designed for, as render does (before the long survey)."""
+    from audition.design.checks import check_rate
+    from audition.errors import BadParameter
+
+    try:
+        check_rate(rate_hz)
+    except BadParameter as exc:
+        raise BadParameter(f"{path!r} at {rate_hz:g} Hz: {exc}") from None
 
 
 def settings_from_args(args):
@@ -97,7 +112,7 @@ def make_plan(survey, args):
 
 
 def save_plan(pl, survey, path, source: str, overwrite: bool = True) -> None:
-    """Write the choice as a plan file (atomically)."""
+    """Write the choice as a plan file (atomically); ``path`` may be an :class:`audition.io.guard.Target`."""
     from audition import report
     from audition.plan import presets
     from audition.errors import AuditionError
@@ -106,7 +121,7 @@ def save_plan(pl, survey, path, source: str, overwrite: bool = True) -> None:
         raise AuditionError(f"{path}: not written: the plan is no filter ({pl.no_filter_reason})")
     import os
 
-    name = os.path.splitext(os.path.basename(path))[0]
+    name = os.path.splitext(os.path.basename(os.fspath(path)))[0]
     spec = presets.FilterSpec.from_design(pl.choice.design, name, pl.explanation)
     pr = pl.choice.predicted()
     text = spec.to_toml(
@@ -172,20 +187,22 @@ def format_plan(path, pl) -> str:
 
 def run(args) -> int:
     from audition.cli.noiseopts import survey_file
-    from audition.io import reader, writer
+    from audition.io import guard, reader
 
-    reader.info(args.input)
-    if args.save:
-        writer.check_output_path(args.save, inputs=(args.input,), overwrite=True)
+    check_file_rate(args.input, reader.info(args.input).rate_hz)
+    inputs = (args.input, args.noise_clip)
+    save = guard.target(args.save, inputs=inputs, overwrite=args.overwrite, what="--save")
+    plot = guard.target(args.plot, inputs=inputs, overwrite=args.overwrite, what="--plot")
+    guard.check_distinct([save, plot])
     survey = survey_file(args.input, args)
     pl = make_plan(survey, args)
     saved = bool(args.save) and pl.choice is not None
     if saved:
-        save_plan(pl, survey, args.save, str(args.input))
+        save_plan(pl, survey, save, str(args.input))
     if args.plot:
         from audition.plots.plan import plot_plan
 
-        plot_plan(survey, pl, args.plot, title=str(args.input))
+        plot_plan(survey, pl, plot, title=str(args.input))
     if args.json:
         out = pl.to_dict()
         out["survey"] = survey.to_dict()

@@ -6,6 +6,7 @@ import json
 import os
 
 from audition.cli.filteropts import add_filter_options, add_source_options
+from audition.cli.values import FINITE, SEED, number
 
 HELP = "realise a filter as preferred-value parts (series RLC, Sallen-Key) or DSP coefficients, with the error"
 TARGET_HELP = ("series-rlc: passive R-L-C section (output across C) per second-order section, RC for first order; "
@@ -23,27 +24,29 @@ def add_parser(sub) -> None:
                    help="IEC 60063 preferred-number series of the resistors (default E24; E6 also offered)")
     a.add_argument("--cap-series", metavar="SERIES", help="series of the capacitors (default: --series)")
     a.add_argument("--inductor-series", default="E12", metavar="SERIES", help="series of the inductors (default E12)")
-    a.add_argument("--impedance-ohm", type=float, metavar="OHM",
+    a.add_argument("--impedance-ohm", type=FINITE, metavar="OHM",
                    help="impedance level: sqrt(L/C) for series-rlc (default 600), the resistors for sallen-key "
                         "(default 10000); R of a first-order stage")
-    a.add_argument("--source-ohm", type=float, default=0.0, metavar="OHM",
+    a.add_argument("--source-ohm", type=FINITE, default=0.0, metavar="OHM",
                    help="output impedance of whatever drives the filter; adds to the first R (default 0)")
-    a.add_argument("--load-ohm", type=float, metavar="OHM",
+    a.add_argument("--load-ohm", type=FINITE, metavar="OHM",
                    help="load across the last capacitor (series-rlc); default: open")
-    a.add_argument("--tolerance-pct", type=float, default=5.0, metavar="PCT",
+    a.add_argument("--tolerance-pct", type=FINITE, default=5.0, metavar="PCT",
                    help="tolerance of resistors and capacitors for the Monte Carlo, percent (default 5); the "
                         "1, 2, 5 and 10 %% classes are also compared side by side")
-    a.add_argument("--inductor-tolerance-pct", type=float, default=10.0, metavar="PCT",
+    a.add_argument("--inductor-tolerance-pct", type=FINITE, default=10.0, metavar="PCT",
                    help="tolerance of inductors, percent (default 10)")
     a.add_argument("--trials", type=int, default=2000, metavar="N", help="Monte Carlo builds (default 2000; 0: none)")
-    a.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the Monte Carlo (default 0)")
+    a.add_argument("--seed", type=SEED, default=0, metavar="N", help="seed of the Monte Carlo (default 0)")
     c = p.add_argument_group("DSP coefficients")
-    c.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
-    c.add_argument("--max-deviation-db", type=float, default=0.1, metavar="DB",
+    c.add_argument("--rate", type=FINITE, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
+    c.add_argument("--max-deviation-db", type=number(0.0, 60.0, lo_open=True, unit="dB"), default=0.1, metavar="DB",
                    help="flag a format unsafe above this response deviation (default 0.1 dB)")
     c.add_argument("--header", metavar="FILE.h", help="write the coefficients as a C header (our own layout)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--plot", metavar="FILE.png", help="draw the real response against the target")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --header or --plot file "
+                   "(never the plan file)")
     p.set_defaults(run=run)
 
 
@@ -53,13 +56,15 @@ def add_parser(sub) -> None:
 
 
 def _design(args, rate_hz):
+    """``(design, header, plot)``: the filter at ``rate_hz`` and the checked outputs (guard Targets or None)."""
     from audition.plan import presets
     from audition.cli.filteropts import filter_source, no_filter
 
     spec, _ = filter_source(args)
     if spec is None:
         raise no_filter()
-    return presets.check_design(spec, rate_hz)
+    header, plot = _targets(args, spec.source)
+    return presets.check_design(spec, rate_hz), header, plot
 
 
 def _check(args):
@@ -82,13 +87,21 @@ def _check(args):
         raise BadParameter(f"trials={args.trials!r}: must be 0 (no Monte Carlo) or a positive integer")
     for opt, path, ext in (("header", args.header, ".h"), ("plot", args.plot, ".png")):
         if path:
-            folder = os.path.dirname(os.path.abspath(path))
             if os.path.isdir(path):
                 raise BadParameter(f"{path!r} is a folder: give a file name ending in {ext}")
             if not path.lower().endswith(ext):
                 raise BadParameter(f"{opt}={path!r}: give a file name ending in {ext} (the file is written as {ext})")
-            if not os.path.isdir(folder):
-                raise BadParameter(f"{path!r}: folder {folder!r} does not exist")
+
+
+def _targets(args, spec_source):
+    """The --header and --plot outputs, checked (never the plan file, no existing file without --overwrite)."""
+    from audition.io import guard
+
+    inputs = (spec_source or None,)
+    header = guard.target(args.header, inputs=inputs, overwrite=args.overwrite, what="--header")
+    plot = guard.target(args.plot, inputs=inputs, overwrite=args.overwrite, what="--plot")
+    guard.check_distinct([header, plot])
+    return header, plot
 
 
 # ---------------------------------------------------------------------------
@@ -285,7 +298,7 @@ def run(args) -> int:
     _check(args)
     check_rate(args.rate)
     if args.target == "coefficients":
-        d = _design(args, args.rate)
+        d, header_target, plot = _design(args, args.rate)
         coeffs = realize.quantise(d, max_deviation_db=args.max_deviation_db)
         report = coeffs.to_dict()
         header = None
@@ -295,9 +308,9 @@ def run(args) -> int:
         if args.plot:
             from audition.plots.realize import plot_coefficients
 
-            plot_coefficients(coeffs, args.plot)
+            plot_coefficients(coeffs, plot)
         if header is not None:
-            sidecar.write_text(args.header, header, "header")
+            sidecar.write_text(header_target, header, "header")
         if args.json:
             print(json.dumps(report, indent=2, allow_nan=False))
         else:
@@ -309,7 +322,7 @@ def run(args) -> int:
 
     # The analog values of the sections do not depend on a sample rate; digitise
     # at a rate high enough that any audio f0 is accepted.
-    d = _design(args, max(args.rate, 384000.0))
+    d, _, plot = _design(args, max(args.rate, 384000.0))
     impedance = args.impedance_ohm if args.impedance_ohm is not None else realize.DEFAULT_IMPEDANCE_OHM[args.target]
     options = dict(series=args.series, cap_series=args.cap_series, impedance_ohm=impedance,
                    source_ohm=args.source_ohm, load_ohm=args.load_ohm)
@@ -330,7 +343,7 @@ def run(args) -> int:
     if args.plot:
         from audition.plots.realize import plot_realisation
 
-        plot_realisation(real, tol, args.plot)
+        plot_realisation(real, tol, plot)
     if args.json:
         print(json.dumps(report, indent=2, allow_nan=False))
     else:

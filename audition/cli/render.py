@@ -9,6 +9,7 @@ import time
 
 from audition.cli.filteropts import add_filter_options, add_source_options, filter_source, no_filter
 from audition.cli.noiseopts import add_noise_options
+from audition.cli.values import SEED
 
 HELP = "filter a sound file into a new one (the original is never touched), with a JSON sidecar record"
 #: Kept equal to audition.io.formats.OUTPUT_SUBTYPES (tests check it) so the help needs no soundfile import.
@@ -33,7 +34,7 @@ def add_parser(sub) -> None:
                      "(default: the input's)")
     out.add_argument("--no-dither", dest="dither", action="store_false",
                      help="round integer outputs without TPDF dither (not advised: low-level distortion)")
-    out.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the dither (default 0): "
+    out.add_argument("--seed", type=SEED, default=0, metavar="N", help="seed of the dither (default 0): "
                      "the same inputs and seed give the same bytes")
     out.add_argument("--overwrite", action="store_true", help="replace an existing OUT and OUT.json (never IN)")
     out.add_argument("--report", metavar="FILE.html", help="also write one self-contained HTML page (pictures inline, "

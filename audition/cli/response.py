@@ -13,9 +13,12 @@ def add_parser(sub) -> None:
     p = sub.add_parser("response", help=HELP, description=(HELP[0].upper() + HELP[1:]) + ".")
     add_filter_options(p)
     add_source_options(p)
-    p.add_argument("--rate", type=float, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
+    from audition.cli.values import FINITE
+
+    p.add_argument("--rate", type=FINITE, default=48000.0, metavar="HZ", help="sample rate in Hz (default 48000)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--plot", metavar="FILE.png", help="draw magnitude and phase, analog against digital")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --plot file (never the plan file)")
     p.set_defaults(run=run)
 
 
@@ -101,16 +104,19 @@ def run(args) -> int:
     from audition.design import check_rate
     from audition.plan import presets
 
+    from audition.io import guard
+
     check_rate(args.rate)
     spec, _ = filter_source(args)
     if spec is None:
         raise no_filter()
+    plot = guard.target(args.plot, inputs=(spec.source or None,), overwrite=args.overwrite, what="--plot")
     d = presets.check_design(spec, args.rate)
     r = report(d)
     if args.plot:
         from audition.plots.response import plot_response
 
-        plot_response(d, args.plot)
+        plot_response(d, plot)
     if args.json:
         print(json.dumps(r, indent=2))
     else:

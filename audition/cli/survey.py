@@ -22,6 +22,8 @@ def add_parser(sub) -> None:
     add_filter_options(p, title="filter to predict (optional)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE.png", help="draw the spectra, the crossover and any filter")
+    p.add_argument("--overwrite", action="store_true",
+                   help="replace an existing --plot file (never IN or the noise clip)")
     p.set_defaults(run=run)
 
 
@@ -150,18 +152,13 @@ def run(args) -> int:
     from audition.cli.filteropts import design_from_args
     from audition.io import reader
 
+    from audition.cli.plan import check_file_rate
+    from audition.io import guard
+
     inf = reader.info(args.input)
+    check_file_rate(args.input, inf.rate_hz)
     d = design_from_args(args, inf.rate_hz)  # checked before the long read
-    if args.plot:
-        import os
-
-        from audition.errors import OutputRefused
-
-        folder = os.path.dirname(os.path.abspath(args.plot))
-        if not os.path.isdir(folder):
-            raise OutputRefused(f"{args.plot}: folder {folder!r} does not exist; the plot could not be written")
-        if os.path.isdir(args.plot):
-            raise OutputRefused(f"{args.plot}: is a folder; give the plot a file name ending in .png")
+    plot = guard.target(args.plot, inputs=(args.input, args.noise_clip), overwrite=args.overwrite, what="--plot")
     from audition.cli.noiseopts import survey_file
 
     from audition.cli.noiseopts import noise_from_args
@@ -171,7 +168,7 @@ def run(args) -> int:
     if args.plot:
         from audition.plots.survey import plot_survey
 
-        plot_survey(s, args.plot, design=d, title=str(args.input), prediction=r.get("prediction"))
+        plot_survey(s, plot, design=d, title=str(args.input), prediction=r.get("prediction"))
     for w in r["warnings"]:
         print(f"audition survey: warning: {args.input}: {w}", file=sys.stderr)
     if args.json:

@@ -58,6 +58,35 @@ def stem_paths(out: str, stems_dir: str) -> tuple[str, str]:
     return (os.path.join(stems_dir, stem + ".programme.wav"), os.path.join(stems_dir, stem + ".hiss.wav"))
 
 
+def _make_folders(path: str) -> list[str]:
+    """Make ``path`` and any missing parents; returns those made, outermost first (for removal on failure)."""
+    from audition.errors import OutputRefused
+    from audition.io.messages import _os_message
+
+    missing = []
+    p = os.path.abspath(path)
+    while not os.path.isdir(p):
+        missing.append(p)
+        parent = os.path.dirname(p)
+        if parent == p:
+            break
+        p = parent
+    made = []
+    for folder in reversed(missing):
+        try:
+            os.mkdir(folder)
+        except OSError as exc:
+            for m in reversed(made):
+                try:
+                    os.rmdir(m)
+                except OSError:
+                    pass
+            raise OutputRefused(f"--stems {path!r}: the folder {folder!r} cannot be made "
+                                f"({_os_message(exc)})") from None
+        made.append(folder)
+    return made
+
+
 def run(args) -> int:
     import math
 
@@ -73,7 +102,6 @@ def run(args) -> int:
     fmt = formats.format_for_path(args.out)
     formats.check_output_subtype(args.subtype, fmt, args.out)
     targets = [(args.out, fmt, args.subtype, "mix")]
-    made_dir = None
     if args.stems:
         if os.path.exists(args.stems) and not os.path.isdir(args.stems):
             raise OutputRefused(f"--stems {args.stems!r}: exists and is not a folder")
@@ -91,9 +119,7 @@ def run(args) -> int:
             if os.path.lexists(path) and not args.overwrite:
                 raise OutputRefused(f"{path!r}: exists; give --overwrite to replace it")
     writer.check_output_path(args.out, overwrite=args.overwrite)
-    if args.stems and not os.path.isdir(args.stems):
-        os.makedirs(args.stems)
-        made_dir = args.stems
+    made_dirs = _make_folders(args.stems) if args.stems else []
 
     writers = []
     sq = np.zeros(p["channels"])
@@ -115,9 +141,9 @@ def run(args) -> int:
     except BaseException:
         for w in writers:
             w.abort()
-        if made_dir is not None:
+        for folder in reversed(made_dirs):  # a refused or failed run leaves no empty folder behind
             try:
-                os.rmdir(made_dir)
+                os.rmdir(folder)
             except OSError:
                 pass
         raise

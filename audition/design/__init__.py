@@ -43,12 +43,12 @@ from audition.design.analog import (Section, alignment_sections, bessel_sections
                                     butterworth_qs)
 from audition.design.cascade import Design, Figures, from_rlc, from_sections, highpass, lowpass
 from audition.design.checks import (ALIGNMENTS, BUTTERWORTH_Q, KINDS, MAX_RIPPLE_DB, METHODS, MIN_RATE_HZ,
-                                    check_alignment, check_f0, check_method, check_order, check_q, check_rate,
+                                    check_alignment, check_f0, check_gain, check_method, check_order, check_q, check_rate,
                                     check_ripple)
 from audition.design.digital import (bilinear_section, digitise, matched_section,
                                      sos_group_delay, sos_response)
 
 __all__ = ["ALIGNMENTS", "BUTTERWORTH_Q", "KINDS", "MAX_RIPPLE_DB", "METHODS", "MIN_RATE_HZ", "chebyshev_sections", "check_ripple", "Design", "Figures", "Section",
            "alignment_sections", "bessel_sections", "bilinear_section", "butterworth_qs", "check_alignment",
-           "check_f0", "check_method", "check_order", "check_q", "check_rate", "digitise", "from_rlc",
+           "check_f0", "check_gain", "check_method", "check_order", "check_q", "check_rate", "digitise", "from_rlc",
            "from_sections", "highpass", "lowpass", "matched_section", "sos_group_delay", "sos_response"]

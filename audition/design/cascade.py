@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from audition.design.analog import Section, alignment_sections
-from audition.design.checks import (BUTTERWORTH_Q, check_f0, check_method, check_order, check_q,
+from audition.design.checks import (BUTTERWORTH_Q, check_f0, check_gain, check_method, check_order, check_q,
                                     check_rate)
 from audition.design.digital import _db, digitise, sos_group_delay, sos_response
 from audition.errors import BadParameter
@@ -85,6 +85,7 @@ class Design:
     def __post_init__(self):
         check_rate(self.rate_hz)
         check_method(self.method)
+        check_gain(sum(s.gain_db for s in self.sections))
         warp = self.warp_hz if self.method == "bilinear" else None
         if warp is not None:
             check_f0(warp, self.rate_hz)
@@ -360,6 +361,7 @@ def from_rlc(r_ohm: float, l_henry: float, c_farad: float, rate_hz: float, *, me
 def _assemble(sections, rate_hz, method, f0_hz, q, order, alignment, gain_db, highpass_hz, highpass_q, *,
               ripple_db=None, warp_hz=None) -> Design:
     check_method(method)
+    check_gain(gain_db)
     if gain_db:
         first = sections[0]
         sections[0] = Section(first.kind, first.f0_hz, first.q, float(gain_db))

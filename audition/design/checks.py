@@ -10,6 +10,16 @@ ALIGNMENTS = ("butterworth", "bessel", "linkwitz-riley", "chebyshev")
 METHODS = ("bilinear", "matched")
 KINDS = ("lowpass", "highpass")
 MIN_RATE_HZ = 8000.0
+#: Highest sample rate accepted, Hz: 768 kHz, the highest rate of common converters (common practice, no source).
+MAX_RATE_HZ = 768000.0
+#: Passband gain accepted, +-dB: 60 dB either way is far beyond any level trim (1000x in amplitude);
+#: more only overflows or renders silence (our own choice).
+MAX_GAIN_DB = 60.0
+#: Smallest Q of a second-order section: below 0.1 its two real poles lie about 100:1 apart, and
+#: far below it the matched method's exp() overflows (our own choice).
+MIN_Q = 0.1
+#: Largest Q of a second-order section.
+MAX_Q = 100.0
 #: Largest passband ripple of a Chebyshev (type I) alignment, dB: more is a resonance, not a hiss filter.
 MAX_RIPPLE_DB = 3.0
 #: Q of the second-order Butterworth section, 1/sqrt(2).
@@ -19,7 +29,17 @@ BUTTERWORTH_Q = 1.0 / math.sqrt(2.0)
 def check_rate(rate_hz: float) -> float:
     if not (isinstance(rate_hz, (int, float)) and math.isfinite(rate_hz) and rate_hz >= MIN_RATE_HZ):
         raise BadParameter(f"rate={rate_hz!r}: the sample rate must be at least {MIN_RATE_HZ:.0f} Hz")
+    if rate_hz > MAX_RATE_HZ:
+        raise BadParameter(f"rate={rate_hz!r}: the sample rate must be at most {MAX_RATE_HZ:.0f} Hz")
     return float(rate_hz)
+
+
+def check_gain(gain_db: float, name: str = "gain-db") -> float:
+    """A passband gain in dB: finite, within +-MAX_GAIN_DB."""
+    if not (isinstance(gain_db, (int, float)) and not isinstance(gain_db, bool) and math.isfinite(gain_db)
+            and abs(gain_db) <= MAX_GAIN_DB):
+        raise BadParameter(f"{name}={gain_db!r} dB: a passband gain must lie within +-{MAX_GAIN_DB:g} dB")
+    return float(gain_db)
 
 
 def check_f0(f0_hz: float, rate_hz: float, name: str = "f0") -> float:
@@ -37,8 +57,8 @@ def check_f0(f0_hz: float, rate_hz: float, name: str = "f0") -> float:
 
 
 def check_q(q: float) -> float:
-    if not (isinstance(q, (int, float)) and math.isfinite(q) and 0.0 < q <= 100.0):
-        raise BadParameter(f"q={q!r}: Q must satisfy 0 < Q <= 100")
+    if not (isinstance(q, (int, float)) and math.isfinite(q) and MIN_Q <= q <= MAX_Q):
+        raise BadParameter(f"q={q!r}: Q must satisfy {MIN_Q:g} <= Q <= {MAX_Q:g}")
     return float(q)
 
 

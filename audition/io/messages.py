@@ -18,3 +18,13 @@ def _os_message(exc) -> str:
     if isinstance(exc, OSError) and exc.errno is not None:
         return os.strerror(exc.errno) if exc.errno != errno.ENOSPC else "no space left on the disk"
     return _sf_message(exc)
+
+
+def size_text(n_bytes: float) -> str:
+    """A size in binary units with enough figures to mean something: ``"200 KiB"``, ``"1.5 MiB"``, ``"12 bytes"``."""
+    n = float(n_bytes)
+    for unit, scale in (("GiB", 2**30), ("MiB", 2**20), ("KiB", 2**10)):
+        if n >= scale:
+            v = n / scale
+            return f"{v:,.1f} {unit}" if v < 100 else f"{v:,.0f} {unit}"
+    return f"{n:,.0f} bytes"

@@ -29,12 +29,15 @@ def utc_now_iso() -> str:
 class PreparedText:
     """A text file (UTF-8) prepared in a temporary file beside ``path``, renamed into place by :meth:`commit`.
 
-    ``what`` names the file in an error ("sidecar", "report", ...).
+    ``what`` names the file in an error ("sidecar", "report", ...). ``path`` may be an
+    :class:`audition.io.guard.Target`, whose rules (never an input, never an existing file
+    without ``--overwrite``) are checked again as the file is made.
     """
 
     def __init__(self, path, text: str, what: str = "file"):
+        # ``path`` may be a guard.Target: the temporary file then applies its rules (inputs, --overwrite)
         self.path = os.fspath(path)
-        self._tmp = _TempFile(self.path)
+        self._tmp = _TempFile(path)
         try:
             view = memoryview(text.encode("utf-8"))
             while view:

@@ -42,7 +42,23 @@ def remove_leftover_parts(target) -> list[str]:
 class _TempFile:
     """A temporary file beside ``target``: fsync, atomic rename into place, or removal."""
 
-    def __init__(self, target: str):
+    def __init__(self, target, replace: bool | None = None):
+        from audition.io.guard import Target, check_output
+
+        if isinstance(target, Target):
+            # the rules again, at the moment of writing: an input, a folder, a file that appeared meanwhile
+            target.check()
+            if replace is None:
+                replace = target.overwrite
+        target = os.fspath(target)
+        existed = os.path.lexists(target)
+        if existed:
+            # never replace a folder, device node or FIFO, whatever the caller allowed
+            check_output(target, overwrite=True)
+        #: the final rename may replace a file: only one that was there when this file was made
+        #: (and that the caller was allowed to replace); a new output never replaces a file that
+        #: appeared meanwhile (another writer's)
+        self.replace = existed if replace is None else (replace and existed)
         self.target = target
         folder = os.path.dirname(os.path.abspath(target))
         try:
@@ -68,7 +84,14 @@ class _TempFile:
         os.close(self.fd)
         self.open = False
         try:
-            os.replace(self.name, self.target)
+            if self.replace:
+                os.replace(self.name, self.target)
+            else:
+                rename_no_replace(self.name, self.target)
+        except FileExistsError:
+            self.remove()
+            raise OutputRefused(f"{self.target!r}: appeared while it was being written (another run?); "
+                                "it was left as it is and nothing was written") from None
         except OSError as exc:
             self.remove()
             raise OutputRefused(f"{self.target!r}: could not be put in place ({_os_message(exc)})") from None
@@ -82,6 +105,64 @@ class _TempFile:
             os.unlink(self.name)
         except FileNotFoundError:
             pass
+
+
+_AT_FDCWD = -100
+_RENAME_NOREPLACE = 1  # linux/fs.h
+_renameat2 = None
+
+
+def _libc_renameat2():
+    """glibc's renameat2 (2.28 and later), or None where there is none."""
+    global _renameat2
+    if _renameat2 is None:
+        _renameat2 = False
+        try:
+            import ctypes
+
+            fn = ctypes.CDLL(None, use_errno=True).renameat2
+            fn.argtypes = (ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p, ctypes.c_uint)
+            fn.restype = ctypes.c_int
+            _renameat2 = fn
+        except (OSError, AttributeError):
+            pass
+    return _renameat2 or None
+
+
+def rename_no_replace(src: str, dst: str) -> None:
+    """Rename ``src`` to ``dst`` atomically, failing with FileExistsError if ``dst`` exists.
+
+    ``renameat2(..., RENAME_NOREPLACE)`` where the kernel and file system have it
+    (Linux 3.15+, glibc 2.28+; renameat2(2)); else a hard link then the removal of
+    ``src`` (``link(2)`` fails with EEXIST on an existing name, POSIX); on a file
+    system with neither (some FUSE and FAT mounts) a check then ``os.replace``,
+    which leaves a window of a few microseconds in which a file made by another
+    process could be replaced.
+    """
+    import ctypes
+    import errno
+
+    fn = _libc_renameat2()
+    if fn is not None:
+        if fn(_AT_FDCWD, os.fsencode(src), _AT_FDCWD, os.fsencode(dst), _RENAME_NOREPLACE) == 0:
+            return
+        err = ctypes.get_errno()
+        if err == errno.EEXIST:
+            raise FileExistsError(err, os.strerror(err), dst)
+        if err not in (errno.EINVAL, errno.ENOSYS, errno.ENOTSUP, errno.EOPNOTSUPP):
+            raise OSError(err, os.strerror(err), dst)
+    try:
+        os.link(src, dst)
+    except FileExistsError:
+        raise
+    except OSError as exc:
+        if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.ENOSYS, errno.EMLINK, errno.EXDEV):
+            raise
+        if os.path.lexists(dst):
+            raise FileExistsError(errno.EEXIST, os.strerror(errno.EEXIST), dst) from None
+        os.replace(src, dst)
+        return
+    os.unlink(src)
 
 
 def _fsync_folder(folder: str) -> None:

@@ -33,7 +33,7 @@ from audition.io.formats import (
     check_output_subtype,
     format_for_path,
 )
-from audition.io.messages import _os_message
+from audition.io.messages import _os_message, size_text
 from audition.io.quantise import Quantiser, left_justify
 from audition.io.tempfiles import _TempFile
 from audition.truepeak import TruePeakMeter
@@ -183,7 +183,7 @@ class AtomicWriter:
         self.quantiser = Quantiser(self.bits, dither=dither, seed=seed) if self.bits else None
         if frames_hint is not None:
             self._check_room(frames_hint, channels)
-        self._tmp = _TempFile(self.path)
+        self._tmp = _TempFile(self.path, replace=overwrite)  # never a file that appeared meanwhile, unless overwriting
         try:
             self._sf = sf.SoundFile(self._tmp.fd, mode="w", samplerate=int(round(rate_hz)), channels=channels,
                                     format=format, subtype=subtype, closefd=False)
@@ -223,8 +223,8 @@ class AtomicWriter:
         if self.format != "FLAC":
             free = _free_bytes(os.path.dirname(os.path.abspath(self.path)))
             if free is not None and size > free:
-                raise OutputRefused(f"{self.path!r}: needs about {size / 2**20:,.0f} MiB but the disk has "
-                                    f"{free / 2**20:,.0f} MiB free")
+                raise OutputRefused(f"{self.path!r}: needs about {size_text(size)} but the disk has "
+                                    f"{size_text(free)} free")
 
     def quantise(self, x: np.ndarray) -> tuple[np.ndarray, float]:
         """Dither, round and saturate a block for this output; update the counts.
@@ -350,31 +350,19 @@ class AtomicWriter:
 
 def same_file(a, b) -> bool:
     """True when ``a`` and ``b`` name one file (links, other spellings, hard links included)."""
-    a, b = os.fspath(a), os.fspath(b)
-    try:
-        if os.path.samefile(a, b):
-            return True
-    except OSError:
-        pass
-    return os.path.realpath(a) == os.path.realpath(b)
+    from audition.io.guard import same_file as _same
+
+    return _same(a, b)
 
 
 def check_output_path(path, *, inputs=(), overwrite: bool = False) -> None:
-    """Refuse an output that is an input, a folder, exists (unless ``overwrite``), or has no writable folder."""
-    p = os.fspath(path)
-    for src in inputs:
-        if same_file(p, src):
-            raise OutputRefused(f"{p!r}: is the input {os.fspath(src)!r}; the original is never written to, "
-                                "name another output")
-    if os.path.isdir(p):
-        raise OutputRefused(f"{p!r}: is a folder; name an output file")
-    if os.path.lexists(p) and not overwrite:
-        raise OutputRefused(f"{p!r}: exists; give --overwrite to replace it")
-    folder = os.path.dirname(os.path.abspath(p))
-    if not os.path.isdir(folder):
-        raise OutputRefused(f"{p!r}: the folder {folder!r} does not exist")
-    if not os.access(folder, os.W_OK | os.X_OK):
-        raise OutputRefused(f"{p!r}: the folder {folder!r} is not writable")
+    """Refuse an output that is an input, not a regular file, exists (unless ``overwrite``), or has no writable folder.
+
+    The rules of :func:`audition.io.guard.check_output`, the one check every writer uses.
+    """
+    from audition.io.guard import check_output
+
+    check_output(path, inputs=inputs, overwrite=overwrite)
 
 
 def _free_bytes(folder: str) -> int | None:

@@ -53,7 +53,9 @@ def noise_warnings(survey) -> list[str]:
         out.append("most of the noise power lies below 1 kHz (rumble or hum, not hiss): a low-pass is the wrong "
                    "tool for it")
     if c.separation_db is not None and c.separation_db < BROADBAND_SEPARATION_DB:
-        out.append(f"the quiet frames lie only {c.separation_db:.1f} dB below the programme: the noise is at "
+        from audition.survey.noise import below_words
+
+        out.append(f"the quiet frames lie {below_words(c.separation_db)}: the noise is at "
                    "programme level, or the noise reference holds programme; give --noise-span over hiss alone")
     hiss = weighted_levels(f, n, ("itu468",))["itu468"]
     if hiss < LOW_HISS_DBFS:

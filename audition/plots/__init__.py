@@ -7,7 +7,6 @@ and commands that draw nothing pay nothing for it.
 from __future__ import annotations
 
 import os
-import tempfile
 
 from audition.errors import OutputRefused
 
@@ -22,25 +21,28 @@ def pyplot():
     return plt
 
 
-def save_figure(fig, path: str | os.PathLike, dpi: int = 120) -> None:
-    """Write ``fig`` as PNG atomically: a temporary file in the target folder, then rename."""
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise OutputRefused(f"{path}: folder {folder!r} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=".audition-", suffix=".png.tmp", dir=folder)
-    # mkstemp makes 0600; give the picture the permissions a plain new file would get
-    umask = os.umask(0)
-    os.umask(umask)
-    os.fchmod(fd, 0o666 & ~umask)
+def save_figure(fig, path, dpi: int = 120) -> None:
+    """Write ``fig`` as PNG atomically: a temporary file in the target folder, then rename.
+
+    ``path`` may be an :class:`audition.io.guard.Target` (the command's inputs and
+    ``--overwrite``); a plain path may replace a regular file but never a folder,
+    device or FIFO. Failures (a read-only folder, a full disk) raise OutputRefused.
+    """
+    from audition.io.messages import _os_message
+    from audition.io.tempfiles import _TempFile
+
+    name = os.fspath(path)
     try:
-        with os.fdopen(fd, "wb") as fh:
-            fig.savefig(fh, format="png", dpi=dpi)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+        tmp = _TempFile(path)
+        try:
+            with os.fdopen(os.dup(tmp.fd), "wb") as fh:
+                fig.savefig(fh, format="png", dpi=dpi)
+        except BaseException as exc:
+            tmp.remove()
+            if isinstance(exc, OSError):
+                raise OutputRefused(f"{name!r}: writing the picture failed ({_os_message(exc)})") from None
+            raise
+        tmp.commit()
     finally:
         pyplot().close(fig)
 

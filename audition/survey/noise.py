@@ -41,6 +41,18 @@ DEFAULT_BELOW_DB = 6.0
 DEFAULT_MIN_NOISE_SECONDS = 0.5
 DEFAULT_MIN_SEPARATION_DB = 3.0
 NOISE_SPAN_HINT = "give --noise-span START:END"
+#: Below this RMS level (dBFS) a file holds no signal: under the dither of a 24-bit file (about -141 dBFS,
+#: common practice, no source), so only digital silence or a constant (DC) offset, which the analysis removes.
+NO_SIGNAL_DBFS = -140.0
+
+
+def below_words(sep_db: float, other: str = "the programme") -> str:
+    """``"only 3.2 dB below the programme"``, or ``"1.5 dB above the programme"`` for a negative separation."""
+    if sep_db > 0.05:
+        return f"only {sep_db:.1f} dB below {other}"
+    if sep_db < -0.05:
+        return f"{-sep_db:.1f} dB above {other}"
+    return f"level with {other}"
 
 
 @dataclass(frozen=True)
@@ -90,7 +102,7 @@ class NoiseConfidence:
             return []
         why = []
         if self.separation_db is not None and self.separation_db < 10:
-            why.append(f"only {self.separation_db:.1f} dB below the programme")
+            why.append(below_words(self.separation_db))
         if self.level_spread_db > 1.0:
             why.append(f"its level wanders by {self.level_spread_db:.1f} dB")
         if self.noise_seconds < 0.5:
@@ -342,14 +354,18 @@ def find_quiet_frames(seg: Segmenter, acc: _LevelAccumulator, levels: np.ndarray
     is_prog = (step > hi_step) & ~silent
     noise_lv, prog_lv = levels[is_noise], levels[is_prog]
     noise_seconds, out_spans = _covered_seconds(is_noise, seg)
+    if not is_prog.any() and float(np.max(levels[~silent])) < NO_SIGNAL_DBFS:
+        raise BadInputFile(f"{what}holds no signal: every frame is below {NO_SIGNAL_DBFS:g} dBFS once any constant "
+                           f"(DC) offset is taken away (digital silence or DC alone); there is no hiss to survey")
     if not is_prog.any():
         raise BadInputFile(f"{what}no quiet frames found: the whole file lies within {threshold_db:g} dB of "
                            f"its quietest {min_noise_seconds:g} s (about {float(np.median(noise_lv)):.1f} dBFS), "
                            f"with no programme above a floor; {NOISE_SPAN_HINT}")
     sep = float(np.median(prog_lv) - np.median(noise_lv))
     if sep < min_separation_db:
-        raise BadInputFile(f"{what}no quiet frames found: the quietest {min_noise_seconds:g} s lie only "
-                           f"{sep:.1f} dB below the median level of the rest ({min_separation_db:g} dB needed); "
+        raise BadInputFile(f"{what}no quiet frames found: the quietest {min_noise_seconds:g} s lie "
+                           f"{below_words(sep, 'the median level of the rest')} ({min_separation_db:g} dB "
+                           "below needed); "
                            f"{NOISE_SPAN_HINT}")
     if noise_seconds < min_noise_seconds:
         raise BadInputFile(f"{what}no quiet frames found: only {noise_seconds:.2f} s sit near the floor "
