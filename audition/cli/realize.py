@@ -45,6 +45,8 @@ def add_parser(sub) -> None:
     c.add_argument("--header", metavar="FILE.h", help="write the coefficients as a C header (our own layout)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--plot", metavar="FILE.png", help="draw the real response against the target")
+    p.add_argument("--circuit", metavar="FILE.png|FILE.svg", help="draw the circuit with its part values "
+                   "(series-rlc or sallen-key; needs schemdraw: pip install 'audition[circuit]')")
     p.add_argument("--overwrite", action="store_true", help="replace an existing --header or --plot file "
                    "(never the plan file)")
     p.set_defaults(run=run)
@@ -83,6 +85,15 @@ def _check(args):
                 raise BadParameter(f"--{name.replace('_', '-')} applies to the analog targets, not to coefficients")
         if args.source_ohm:
             raise BadParameter("--source-ohm applies to the analog targets, not to coefficients")
+    if args.circuit:
+        if args.target == "coefficients":
+            raise BadParameter(f"circuit={args.circuit!r}: a circuit is drawn for series-rlc and sallen-key, "
+                               "not for coefficients")
+        if not args.circuit.lower().endswith((".png", ".svg")):
+            raise BadParameter(f"circuit={args.circuit!r}: give a file name ending in .png or .svg")
+        from audition.plots.circuit import _schemdraw
+
+        _schemdraw()  # a missing schemdraw is said before any work
     if args.trials < 0:
         raise BadParameter(f"trials={args.trials!r}: must be 0 (no Monte Carlo) or a positive integer")
     for opt, path, ext in (("header", args.header, ".h"), ("plot", args.plot, ".png")):
@@ -344,10 +355,17 @@ def run(args) -> int:
         from audition.plots.realize import plot_realisation
 
         plot_realisation(real, tol, plot)
+    if args.circuit:
+        from audition.io import guard
+        from audition.plots.circuit import write_circuit
+
+        write_circuit(real, guard.target(args.circuit, inputs=(), overwrite=args.overwrite, what="--circuit"))
     if args.json:
         print(json.dumps(report, indent=2, allow_nan=False))
     else:
         print(format_analog(report))
         if args.plot:
             print(f"plot written to {args.plot}")
+        if args.circuit:
+            print(f"circuit drawing written to {args.circuit}")
     return 0

@@ -71,3 +71,47 @@ def audio_ticks(ax, lo_hz: float = 20.0, hi_hz: float = 24000.0) -> None:
     ax.xaxis.set_major_locator(FixedLocator(ticks))
     ax.set_xticklabels([f"{t // 1000}k" if t >= 1000 else str(t) for t in ticks])
     ax.xaxis.set_minor_formatter(NullFormatter())
+
+
+def mark_line(ax, x: float, text: str, colour) -> None:
+    """Remember a label for the vertical line at ``x`` (data units); :func:`place_line_labels` draws them all."""
+    if not hasattr(ax, "_audition_line_labels"):
+        ax._audition_line_labels = []
+    ax._audition_line_labels.append((float(x), text, colour))
+
+
+def place_line_labels(ax, top: float = 0.975, row: float = 0.07, fontsize: float = 9, pad_px: float = 5.0) -> None:
+    """Draw the labels of :func:`mark_line` at the top of ``ax``, one row each, none across another line.
+
+    Call it once the figure's layout is final (after ``tight_layout``): the room
+    beside each line is measured in pixels. A label goes right of its line, else
+    left of it, else beyond the outermost line on the side with room; a label
+    that fits nowhere goes right of its line all the same.
+    """
+    marks = sorted(getattr(ax, "_audition_line_labels", []), key=lambda m: m[0])
+    if not marks:
+        return
+    renderer = ax.figure.canvas.get_renderer()
+    box = ax.get_window_extent(renderer)
+    to_px = ax.transData.transform
+    to_data = ax.transData.inverted().transform
+    xs = [to_px((x, 1.0))[0] for x, _, _ in marks]
+    bbox = dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.9)
+    for k, (x, text, colour) in enumerate(marks):
+        t = ax.text(0, 0, text, fontsize=fontsize, transform=ax.transAxes, bbox=bbox)
+        w = t.get_window_extent(renderer).width
+        t.remove()
+        me, others = xs[k], xs[:k] + xs[k + 1:]
+
+        def free(lo, hi):
+            return lo >= box.x0 + 2 and hi <= box.x1 - 2 and not any(lo - 3 <= o <= hi + 3 for o in others)
+
+        tries = [(me + pad_px, "left"), (me - pad_px, "right"), (max(xs) + pad_px, "left"), (min(xs) - pad_px, "right")]
+        at, ha = tries[0]
+        for px, side in tries:
+            lo, hi = (px, px + w) if side == "left" else (px - w, px)
+            if free(lo, hi):
+                at, ha = px, side
+                break
+        ax.text(to_data((at, 0.0))[0], top - row * k, text, transform=ax.get_xaxis_transform(), ha=ha, va="top",
+                color=colour, fontsize=fontsize, bbox=bbox)

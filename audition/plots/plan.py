@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from audition.plots import pyplot, save_figure
+from audition.plots import place_line_labels, pyplot, save_figure
 from audition.plan import alternative_kind
 from audition.plots.survey import draw_survey
 
@@ -74,6 +74,7 @@ def plan_figure(survey, pl, title: str = ""):
                   "spectra (no filter chosen; the best compromise drawn)", fontsize=10)
     fig.suptitle(title, fontsize=11)
     fig.tight_layout()
+    place_line_labels(ax2)
     return fig
 
 

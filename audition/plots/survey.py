@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from audition.plots import pyplot, save_figure
+from audition.plots import mark_line, place_line_labels, pyplot, save_figure
 
 PROGRAMME, HISS, FILTER, CROSSOVER = "C0", "C3", "C2", "0.15"
 
@@ -37,7 +37,9 @@ def draw_survey(ax, survey, design=None, legend_loc: str | None = "best"):
     The band lines are each band's power divided by its width, so they sit on the
     per-bin curves they smooth. The part of the axis above the crossover (the
     programme under the hiss) is shaded; with a design, the filtered band
-    densities are drawn dashed and f0 is marked.
+    densities are drawn dashed and f0 is marked. The labels of the f0 and
+    crossover lines are drawn by :func:`audition.plots.place_line_labels` once
+    the figure's layout is final.
     """
     from audition.survey.bands import band_edges, band_levels
 
@@ -59,15 +61,13 @@ def draw_survey(ax, survey, design=None, legend_loc: str | None = "best"):
         ax.semilogx(c, _raw_db(bf[0] / width), "--", color=PROGRAMME, lw=1.6, label="programme after the filter")
         ax.semilogx(c, _db(bf[1] / width), "--", color=HISS, lw=1.6, label="hiss after the filter")
         ax.axvline(design.f0_hz, color=FILTER, lw=1.2, ls=":")
-        ax.annotate(f"f0 {design.f0_hz:,.0f} Hz", (design.f0_hz, 0.965), xycoords=("data", "axes fraction"),
-                    color=FILTER, fontsize=9)
+        mark_line(ax, design.f0_hz, f"f0 {design.f0_hz:,.0f} Hz", FILTER)
     nyq = survey.rate_hz / 2
     if survey.crossover_hz:
         ax.axvspan(survey.crossover_hz, nyq, color="0.5", alpha=0.08, lw=0)
         ax.axvline(survey.crossover_hz, color=CROSSOVER, lw=1.2, ls="-.")
-        ax.annotate(f"crossover {survey.crossover_hz:,.0f} Hz: programme under the hiss above",
-                    (survey.crossover_hz, 0.965), xycoords=("data", "axes fraction"), fontsize=9, color=CROSSOVER)
-    _place_labels(ax, nyq)
+        mark_line(ax, survey.crossover_hz, f"crossover {survey.crossover_hz:,.0f} Hz: programme under the hiss above",
+                  CROSSOVER)
     valid = _db(np.concatenate([bp[0] / width, bp[1] / width]))
     valid = valid[valid > -290]
     if valid.size:
@@ -81,24 +81,6 @@ def draw_survey(ax, survey, design=None, legend_loc: str | None = "best"):
     ax.grid(True, which="both", alpha=0.3)
     if legend_loc:
         ax.legend(loc=legend_loc, fontsize=8, framealpha=0.9)
-
-
-def _place_labels(ax, nyq: float) -> None:
-    """The f0 and crossover labels at the top, on white, stacked, right-aligned in the right third."""
-    import math
-
-    lo, hi = math.log10(20.0), math.log10(nyq)
-    row = 0
-    for t in sorted(ax.texts, key=lambda t: t.xy[0]):
-        x = t.xy[0]
-        right = (math.log10(x) - lo) / (hi - lo) > 0.6
-        t.xy = (x, 0.965 - 0.075 * row)
-        t.set_va("top")
-        t.set_ha("right" if right else "left")
-        t.xyann = (-4 if right else 4, 0)
-        t.set_anncoords("offset points")
-        t.set_bbox(dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.9))
-        row += 1
 
 
 def survey_figure(survey, design=None, title: str = "", prediction: dict | None = None):
@@ -131,6 +113,7 @@ def survey_figure(survey, design=None, title: str = "", prediction: dict | None 
         lines.append(f"filter {filter_label(design)}")
     ax.set_title("\n".join(x for x in lines if x), fontsize=10)
     fig.tight_layout()
+    place_line_labels(ax)
     return fig
 
 
