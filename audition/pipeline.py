@@ -412,6 +412,8 @@ def render_summary(r, d) -> dict:
         "clipped_samples": r.clipped_samples,
         "trim_db": r.trim_db,
         "input_sha256": r.input_sha256,
+        "output_sha256": r.output_sha256,
+        "metadata": list(r.metadata),
         "seconds": r.seconds,
         "realtime_factor": r.realtime_factor,
     }
@@ -434,19 +436,11 @@ def jsonable(obj):
     return obj
 
 
-def _remove_quietly(*paths):
-    for p in paths:
-        if p and os.path.lexists(p):
-            try:
-                os.unlink(p)
-            except OSError:
-                pass
-
-
 def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None,
                noise: NoiseReference | None = None, subtype: str | None = None, dither: bool = True, seed: int = 0,
                overwrite: bool = False, progress=None, report_path=None, provenance: dict | None = None,
-               threads: bool = True) -> dict:
+               threads: bool = True, container: str | None = None, strict_metadata: bool | None = None,
+               accept_truncated: bool = False, figures_optional: bool = False) -> dict:
     """Survey, plan (with ``auto``), render, measure and report one file.
 
     Parameters
@@ -467,11 +461,20 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         Write one self-contained HTML page there after the render succeeded.
     provenance : dict, optional
         More keys for the sidecar (e.g. the batch run that rendered the file).
+    container, strict_metadata
+        As :func:`audition.render.render_file` (archive metadata).
     threads : bool
         Read ahead and write behind in helper threads (default True, for one
         file on a machine to itself); False keeps the survey, the render and
         the measurement in this thread (one core's work, for a batch worker).
         The results are the same.
+    accept_truncated : bool
+        Render an input whose header declares more frames than it holds (what it
+        holds), recorded in the sidecar's "input"; by default it is refused.
+    figures_optional : bool
+        With ``spec`` and no report: a survey or measurement that cannot be made
+        (no quiet frames...) leaves the figures out, the reason in "figures_missing"
+        (result and sidecar), instead of failing the job (a batch's choice).
 
     Returns
     -------
@@ -487,12 +490,18 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         BadParameter, BadInputFile or OutputRefused; nothing is left behind.
     """
     from audition.io import reader, writer
-    from audition.io.sidecar import sidecar_path, write_sidecar
+    from audition.io.sidecar import PreparedText, SidecarWriter, sidecar_path
     from audition.plan import presets
-    from audition.render import render_file
+    from audition.render import commit_together, finished_path, render_file
 
     if (spec is None) == (auto is None):
         raise BadParameter("give exactly one filter source: a filter (spec) or automatic planning (auto)")
+    if accept_truncated:
+        with reader.accept_truncated(in_path):
+            return render_job(in_path, out_path, spec=spec, auto=auto, noise=noise, subtype=subtype, dither=dither,
+                              seed=seed, overwrite=overwrite, progress=progress, report_path=report_path,
+                              provenance=provenance, threads=threads, container=container,
+                              strict_metadata=strict_metadata, figures_optional=figures_optional)
     in_path, out_path = os.fspath(in_path), os.fspath(out_path)
     side_path = sidecar_path(out_path)
     # Refuse every output before reading anything: a job fails early or not at all.
@@ -516,8 +525,16 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
                               ("measuring", noise is not None), ("writing the report", report_path is not None)) if on]
     phase = _phase_announcer(progress, phases)
     survey = pl = None
+    # with a fixed filter and no report the figures are extras: one that cannot be made is left out
+    optional = figures_optional and auto is None and report_path is None
+    figures_missing = None
     if noise is not None:
-        survey = survey_path(in_path, noise, threads=threads, progress=phase("surveying"))
+        try:
+            survey = survey_path(in_path, noise, threads=threads, progress=phase("surveying"))
+        except (BadInputFile, BadParameter) as exc:
+            if not optional:
+                raise
+            survey, figures_missing = None, f"no figures: {exc}"
     if auto is not None:
         phase("planning")
         check_evidence(in_path, survey, noise)
@@ -531,6 +548,8 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         filter_source = {"kind": "spec", "name": spec.name, "file": spec.source or None}
 
     record = {"settings": settings, "filter_source": filter_source, **(provenance or {})}
+    if figures_missing:
+        record["figures_missing"] = figures_missing
     predicted = None
     if survey is not None:
         predicted = predict(survey, d, noise)
@@ -540,28 +559,46 @@ def render_job(in_path, out_path, *, spec=None, auto: PlanSettings | None = None
         record["plan"] = compact_plan(pl)
     record = jsonable(record)
 
+    # The output and its sidecar stay in their temporary files until the measurement and the
+    # report are ready too; then all of them are put in place as one unit (commit_together),
+    # so a failure or a signal on the way leaves the files an --overwrite would replace untouched.
+    held: list = []
     r = render_file(in_path, out_path, d, subtype=subtype, dither=dither, seed=seed, overwrite=overwrite,
-                    progress=phase("rendering"), record_extra=record, threads=threads)
+                    progress=phase("rendering"), record_extra=record, threads=threads,
+                    container=container, strict_metadata=strict_metadata, hold=held)
     try:
         out = render_summary(r, d)
         out.update(record)
+        side = held[1]
+        measured = None
         if survey is not None:
-            measured = measure_render(in_path, out_path, d, survey, noise, threads=threads,
-                                      progress=phase("measuring"))
-            out["measured"] = jsonable(measured)
-            out["warnings"] = list(pl.warnings) if pl is not None else _survey_warnings(survey)
-            sidecar = _read_json(side_path)
-            sidecar["measured"] = out["measured"]
-            write_sidecar(side_path, sidecar)
+            try:
+                measured = measure_render(in_path, finished_path(held[0]), d, survey, noise, threads=threads,
+                                          progress=phase("measuring"))
+            except (BadInputFile, BadParameter) as exc:
+                if not optional:
+                    raise
+                out["figures_missing"] = side.record["figures_missing"] = f"no measurement: {exc}"
+        if measured is not None or out.get("figures_missing") != record.get("figures_missing"):
+            sidecar = side.record
+            if measured is not None:
+                out["measured"] = jsonable(measured)
+                out["warnings"] = list(pl.warnings) if pl is not None else _survey_warnings(survey)
+                sidecar["measured"] = out["measured"]
+            side.abort()
+            held[1] = side = SidecarWriter(side_path, sidecar)
+            side.record = sidecar
         if report_path is not None:
             from audition import report
 
             phase("writing the report")
-            report.write(report_path, report.render_page(out, _read_json(side_path), survey, pl, d))
+            held.append(PreparedText(report_path, report.render_page(out, side.record, survey, pl, d), "report"))
             out["report"] = report_path
+        commit_together(held)
     except BaseException:
-        # The render succeeded but the job did not: take back what this job wrote.
-        _remove_quietly(out_path, side_path)
+        # The render succeeded but the job did not: nothing of it is put in place.
+        for item in held:
+            item.abort()
         raise
     return jsonable(out)
 
@@ -612,13 +649,6 @@ def _survey_warnings(survey) -> list[str]:
     from audition.plan import noise_warnings
 
     return noise_warnings(survey)
-
-
-def _read_json(path) -> dict:
-    import json
-
-    with open(path, encoding="utf-8") as fh:
-        return json.load(fh)
 
 
 __all__ = ["NoiseReference", "PlanSettings", "survey_path", "plan_survey", "plan_path",

@@ -23,7 +23,7 @@ import threading
 import time
 from dataclasses import dataclass
 
-from audition import __version__
+from audition import __version__, interrupt
 from audition.errors import BadInputFile, BadParameter
 from audition.io.formats import BLOCK_FRAMES, OUTPUT_SUBTYPES
 from audition.io.reader import AudioReader
@@ -99,6 +99,8 @@ class RenderResult:
     seconds: float
     realtime_factor: float
     true_peak_dbtp: float | None = None
+    metadata: tuple = ()
+    output_sha256: str | None = None
 
     @property
     def audio_seconds(self) -> float:
@@ -131,7 +133,9 @@ def output_subtype(reader_subtype: str, subtype: str | None, fmt: str, in_path: 
 
 def render_file(in_path, out_path, design, *, subtype: str | None = None, dither: bool = True, seed: int = 0,
                 overwrite: bool = False, sidecar: bool = True, block_frames: int = BLOCK_FRAMES,
-                progress=None, record_extra: dict | None = None, threads: bool = True) -> RenderResult:
+                progress=None, record_extra: dict | None = None, threads: bool = True,
+                container: str | None = None, strict_metadata: bool | None = None, hold: list | None = None
+                ) -> RenderResult:
     """Filter a sound file into a new one, streaming, atomically, with a sidecar record.
 
     Parameters
@@ -159,6 +163,17 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
     threads : bool
         Overlap reading, filtering and writing (default True); False runs
         everything in this thread (same output).
+    container : {None, "wav", "rf64", "w64"}
+        For WAVE inputs: the output's container (default: the input's, and RF64 when a
+        WAV output would pass 4 GiB).
+    strict_metadata : bool, optional
+        Refuse to write when any chunk of the input would be dropped (default: True
+        for Broadcast Wave and RF64/BW64 inputs, False otherwise); see :mod:`audition.io.archive`.
+    hold : list, optional
+        Leave the finished output and sidecar uncommitted: append their writers
+        (:class:`AtomicWriter`, then :class:`SidecarWriter` with its ``record``) to
+        this list, for the caller to commit with other files by :func:`commit_together`
+        (or abort). The output's finished bytes are then in ``finished_path(hold[0])``.
 
     Returns
     -------
@@ -177,17 +192,27 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
     check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
     if side_path is not None:
         check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
+    remove_stale_parts(out_path, side_path)  # what a killed render of this output left (no live run's)
     with AudioReader(in_path, hash_input=True) as reader:
         if abs(design.rate_hz - reader.rate_hz) > 1e-9 * reader.rate_hz:
             raise BadParameter(f"{in_path!r}: the design is for {design.rate_hz:g} Hz but the file is at "
                                f"{reader.rate_hz:g} Hz; design it with the file's rate")
         out_subtype = output_subtype(reader.subtype, subtype, reader.format, in_path)
         side = None
-        writer = AtomicWriter(out_path, reader.rate_hz, reader.channels, format=reader.format,
-                              subtype=out_subtype, overwrite=overwrite, inputs=[in_path],
-                              metadata=reader.metadata, dither=dither, seed=seed,
-                              frames_hint=reader.frames)
+        # the input's chunks and tags, carried into the output (audition.io.archive, issue 15)
+        out_format = output_container(reader, out_subtype, container, in_path)
+        carry = _carry(in_path, out_format, strict_metadata, out_subtype in ("FLOAT", "DOUBLE"))
+        # shielded: a signal between the making of the temporary file and the try below would leave it behind
+        with interrupt.shielded(raise_at_end=False):
+            writer = AtomicWriter(out_path, reader.rate_hz, reader.channels, format=out_format,
+                                  subtype=out_subtype, overwrite=overwrite, inputs=[in_path],
+                                  metadata=None if carry.active else reader.metadata, dither=dither, seed=seed,
+                                  frames_hint=reader.frames, carry=carry,
+                                  valid_bits=carry.valid_bits if out_subtype == reader.subtype else None)
+            carry.processing = processing_text(design, writer)
         try:
+            interrupt.check()
+            _mark_alive(writer)
             filt = StreamingFilter(design.sos, reader.channels)
             # timed from here: scipy's one-off import (about a second) says nothing of the render
             t0 = time.perf_counter()
@@ -195,15 +220,25 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
             run(reader, filt, writer, block_frames, progress)
             writer.finish()
             stats = writer.stats
+            _check_whole(reader, stats.frames)
             sha = reader.sha256()
+            out_sha = None
             if side_path is not None:
                 record = sidecar_record(reader, writer, design, sha, dither=dither, seed=seed)
+                arch = archive_record(writer, carry, design)
+                record["output"].update(arch.pop("output"))
+                out_sha = record["output"]["sha256"]
+                record.update(arch)
+                if reader.info.frames_declared is not None:  # --accept-truncated: the record says so
+                    record["input"].update(frames_declared=reader.info.frames_declared, truncated_accepted=True)
                 if record_extra:
                     record.update(record_extra)
                 side = SidecarWriter(side_path, record)
-            writer.commit()
-            if side is not None:
-                side.commit()
+                side.record = record
+            if hold is not None:
+                hold += [writer] + ([side] if side is not None else [])  # the caller commits or aborts them
+            else:
+                commit_together([writer] + ([side] if side is not None else []))
         except BaseException:
             writer.abort()
             if side is not None:
@@ -213,12 +248,250 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
         q = writer.quantiser
         return RenderResult(
             input=in_path, output=out_path, sidecar=side_path, rate_hz=reader.rate_hz, channels=reader.channels,
-            format=reader.format, subtype=out_subtype, input_subtype=reader.subtype, frames=stats.frames,
+            format=out_format, subtype=out_subtype, input_subtype=reader.subtype, frames=stats.frames,
             sections=len(design.sos), method=design.method, dither=bool(q is not None and q.dither),
             dither_bits=None if q is None else q.bits, seed=seed, peak_dbfs=stats.peak_dbfs,
             clipped_samples=stats.clipped_samples, trim_db=stats.trim_db, input_sha256=sha, seconds=seconds,
             realtime_factor=(stats.frames / reader.rate_hz) / seconds if seconds > 0 else float("inf"),
-            true_peak_dbtp=stats.true_peak_dbtp)
+            true_peak_dbtp=stats.true_peak_dbtp, metadata=tuple(f.to_dict() for f in carry.fates),
+            output_sha256=out_sha)
+
+
+# ---------------------------------------------------------------------------
+# Archive metadata (issue 15): container, carried chunks, fixity of the output
+# ---------------------------------------------------------------------------
+
+#: ``--container`` values and the libsndfile container each writes.
+CONTAINERS = {"wav": "WAV", "rf64": "RF64", "w64": "W64"}
+
+
+def output_container(reader, out_subtype: str, container: str | None, in_path: str) -> str:
+    """The libsndfile container of the output: the input's; RF64 for a WAV that would pass 4 GiB; or ``container``."""
+    from audition.io.formats import INTEGER_BITS
+
+    fmt = reader.format
+    if container is not None:
+        if container not in CONTAINERS:
+            raise BadParameter(f"container={container!r}: allowed are {', '.join(CONTAINERS)}")
+        if fmt not in ("WAV", "WAVEX", "RF64", "W64"):
+            raise BadParameter(f"{in_path!r}: --container applies to WAV inputs; this one is {fmt}")
+        want = CONTAINERS[container]
+        return "WAVEX" if want == "WAV" and fmt == "WAVEX" else want
+    width = INTEGER_BITS.get(out_subtype, 64 if out_subtype == "DOUBLE" else 32) // 8
+    if fmt in ("WAV", "WAVEX") and reader.frames * reader.channels * width + 65536 > 2**32 - 1:
+        return "RF64"  # EBU Tech 3306: a WAVE file past 4 GiB
+    return fmt
+
+
+def _carry(in_path, out_format, strict, float_out):
+    from audition.io.archive import Carry, is_broadcast_wave
+
+    if strict is None:
+        strict = is_broadcast_wave(in_path)
+    return Carry(in_path, out_format=out_format, processing="", strict=strict, float_out=float_out)
+
+
+def processing_text(design, writer) -> str:
+    """This step in words for the coding history (EBU R 98's free text T) and FLAC's PROCESSING comment."""
+    d = design.to_dict()
+    n = len(d.get("sections") or ())
+    parts = [f"audition {__version__}"]
+    shape = f"low-pass {n} section{'s' if n != 1 else ''} {d.get('method') or design.method}"
+    if d.get("f0_hz"):
+        shape += f" f0 {d['f0_hz']:g} Hz"
+    if d.get("q"):
+        shape += f" Q {d['q']:.4g}"
+    if d.get("alignment"):
+        shape += f" {d['alignment']} order {d.get('order')}"
+    parts.append(shape)
+    if d.get("highpass_hz"):
+        parts.append(f"high-pass {d['highpass_hz']:g} Hz")
+    q = writer.quantiser
+    if q is None:
+        parts.append(f"{writer.subtype.lower()} samples no dither")
+    elif q.dither:
+        parts.append(f"TPDF dither {q.bits} bit")
+    else:
+        parts.append(f"rounded to {q.bits} bit without dither")
+    return ";".join(parts)
+
+
+def archive_record(writer, carry, design) -> dict:
+    """The sidecar's archive keys: the output's fixity and format, the chunk inventory, the software."""
+    import soundfile as sf
+
+    from audition.io.reader import sha256_file
+
+    tmp = writer._tmp.name  # the finished file, renamed into place unchanged by commit()
+    fmt = dict(carry.fmt)
+    if not fmt:
+        from audition.io.archive.wave import fmt_of
+
+        fmt = (fmt_of(tmp) if carry.kind is None and writer.format in ("WAV", "WAVEX", "RF64") else None) or {}
+    fmt.update(valid_bits=writer.valid_bits or writer.bits, dither_bits=None if writer.quantiser is None
+               else writer.quantiser.bits)
+    try:
+        gd = float(design.group_delay_s(1000.0)) if 1000.0 < design.rate_hz / 2 else None
+    except Exception:  # a design without a group delay figure: the record says so
+        gd = None
+    if carry.active:
+        # the text fields went with their chunks (byte for byte): "metadata" says so, chunk by chunk
+        copied = {"metadata_copied": [], "metadata_rewritten": []}
+    else:
+        # libsndfile wrote them: a field is copied only when it reads back as it was ("software" gets a mark)
+        try:
+            with sf.SoundFile(tmp) as f:
+                back = f.copy_metadata()
+        except (sf.LibsndfileError, RuntimeError):
+            back = {}
+        meta = writer.metadata_given
+        copied = {"metadata_copied": sorted(k for k in writer.metadata_written if back.get(k) == meta.get(k)),
+                  "metadata_rewritten": sorted(k for k in writer.metadata_written if back.get(k) != meta.get(k))}
+    return {
+        "output": {"sha256": sha256_file(tmp), "size_bytes": os.path.getsize(tmp), "fmt": fmt, **copied},
+        "metadata": [f.to_dict() for f in carry.fates],
+        "metadata_carried_by": "audition.io.archive" if carry.active else "libsndfile text fields",
+        "libsndfile_version": sf.__libsndfile_version__,
+        "group_delay_1khz_s": gd,
+        "group_delay_1khz_samples": None if gd is None else gd * design.rate_hz,
+    }
+
+
+# ---------------------------------------------------------------------------
+# Committing: whole files only, all of a job's files or none (issue 16)
+# ---------------------------------------------------------------------------
+
+
+def finished_path(writer) -> str:
+    """Where a finished, uncommitted writer's bytes are (its temporary file beside the target)."""
+    return writer._tmp.name
+
+
+def _check_whole(reader, frames_written: int) -> None:
+    """Refuse to commit unless every frame the input declares was read and written."""
+    from audition import interrupt
+
+    interrupt.check()  # a read cut short by a signal is an interrupt, not a short file
+    if reader.frames_read != reader.frames or frames_written != reader.frames:
+        raise BadInputFile(f"{reader.path!r}: {reader.frames_read} frames read and {frames_written} written of the "
+                           f"{reader.frames} its header declares; nothing was kept")
+
+
+def _mark_alive(writer) -> None:
+    """Hold a lock on the output's temporary file while this process works on it (see :func:`remove_stale_parts`)."""
+    import fcntl
+
+    try:
+        fcntl.flock(writer._tmp.fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except (OSError, AttributeError):
+        pass  # a file system without locks: stale files are then removed whoever made them
+
+
+#: A temporary file nothing has written to for this long, and that no process holds locked, is stale.
+STALE_AFTER_SECONDS = 2.0
+
+
+def remove_stale_parts(*targets) -> list[str]:
+    """Remove the temporary files that killed writers of ``targets`` left beside them; their names.
+
+    The files of the pattern :mod:`audition.io.tempfiles` gives (``.NAME.XXXXXXXX.part``)
+    that no living process holds locked and that nothing has written to for
+    :data:`STALE_AFTER_SECONDS`: a render running now to the same output keeps its own
+    (see :func:`_mark_alive`; the lock goes with its process, however it dies), and so
+    does one that has just made its file and not yet locked it.
+    """
+    import fcntl
+    import re
+    import time
+
+    from audition.io.tempfiles import _PART_SUFFIX
+
+    removed = []
+    for target in targets:
+        if not target:
+            continue
+        folder, name = os.path.split(os.path.abspath(os.fspath(target)))
+        pattern = re.compile(r"^\." + re.escape(name) + r"\.[A-Za-z0-9_]{8}" + re.escape(_PART_SUFFIX) + "$")
+        try:
+            entries = [e for e in os.listdir(folder) if pattern.match(e)]
+        except OSError:
+            continue
+        for entry in entries:
+            path = os.path.join(folder, entry)
+            try:
+                if time.time() - os.lstat(path).st_mtime < STALE_AFTER_SECONDS:
+                    continue  # written to just now: a living writer's
+                fd = os.open(path, os.O_RDONLY | os.O_NOFOLLOW)
+            except OSError:
+                continue
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except OSError:
+                continue  # a living writer's
+            finally:
+                os.close(fd)
+            try:
+                os.unlink(path)
+                removed.append(entry)
+            except FileNotFoundError:
+                pass
+    return removed
+
+
+def commit_together(items) -> None:
+    """Put finished files in place as one unit: all of them, or none (the files they replace untouched).
+
+    ``items``: prepared writers (:class:`AtomicWriter`, :class:`~audition.io.sidecar.PreparedText`),
+    committed in order. Signals wait until the end (:class:`audition.interrupt.shielded`),
+    and one recorded before the first rename stops the commit. A rename that fails
+    takes back those before it: a new file is removed, a replaced one is put back
+    from a hard link made aside just before (``.NAME.XXXXXXXX.part``, removed after).
+    """
+    import tempfile
+
+    from audition import interrupt
+
+    items = [it for it in items if it is not None]
+    with interrupt.shielded(raise_at_end=False):
+        try:
+            interrupt.check()
+        except KeyboardInterrupt:
+            for it in items:
+                it.abort()
+            raise
+        done, asides = [], []
+        try:
+            for it in items:
+                tmp = it._tmp
+                aside = None
+                if tmp.replace and os.path.lexists(tmp.target):
+                    folder, name = os.path.split(os.path.abspath(tmp.target))
+                    aside = tempfile.mktemp(dir=folder, prefix="." + name + ".", suffix=".part")
+                    try:
+                        os.link(tmp.target, aside)
+                        asides.append(aside)
+                    except OSError:
+                        aside = None  # no hard links here: the old file cannot be kept aside
+                it.commit()
+                done.append((tmp.target, aside))
+        except BaseException:
+            for it in items[len(done):]:
+                it.abort()
+            for target, aside in reversed(done):
+                try:
+                    if aside is not None:
+                        os.replace(aside, target)
+                    else:
+                        os.unlink(target)
+                except OSError:
+                    pass
+            raise
+        finally:
+            for aside in asides:
+                try:
+                    os.unlink(aside)
+                except FileNotFoundError:
+                    pass
 
 
 def sidecar_record(reader, writer, design, sha256: str, *, dither: bool, seed: int) -> dict:

@@ -170,12 +170,16 @@ def test_failures_leave_nothing_behind(mix, tmp_path):
 
 
 def test_report_failure_takes_the_render_back(mix, tmp_path, monkeypatch):
-    from audition import report
+    from audition.io import sidecar
 
-    def broken(*a, **k):
-        raise OutputRefused("disk full (simulated)")
+    real = sidecar.PreparedText
 
-    monkeypatch.setattr(report, "write", broken)
+    def broken(path, text, what="file"):
+        if what == "report":
+            raise OutputRefused("disk full (simulated)")
+        return real(path, text, what)
+
+    monkeypatch.setattr(sidecar, "PreparedText", broken)
     before = listing(tmp_path)
     with pytest.raises(OutputRefused):
         pipeline.render_job(mix, tmp_path / "o.wav", auto=pipeline.PlanSettings(), report_path=tmp_path / "r.html")

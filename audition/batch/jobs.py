@@ -69,6 +69,8 @@ class Job:
         finished by its own run keeps it (status done), and one that finds its own
         run's unfinished output (killed before the measurement) replaces it, as it
         replaces an output without a sidecar (killed between committing the two).
+    accept_truncated : bool
+        Render a clip whose header declares more frames than it holds (``--accept-truncated``).
     threads : bool
         Run the job's reading and writing in helper threads (set by
         :func:`~audition.batch.run.run_batch`: only when a worker process has two or more cores to itself). Without, a
@@ -91,6 +93,10 @@ class Job:
     filter_label: str = ""
     run: str = ""
     threads: bool = False
+    accept_truncated: bool = False
+    container: str | None = None
+    strict_metadata: bool | None = None
+    command_line: tuple = ()
 
     def settings(self) -> dict:
         """The settings this job's sidecar must carry (JSON form) for ``resume`` to skip it."""
@@ -113,26 +119,77 @@ _RUNNING = False
 _STARTED = None
 
 
-def _init_worker(stop_event, started_queue=None) -> None:
-    """Start of a worker process: remember the stop flag; take Ctrl-C only while rendering.
+def _init_worker(stop_event, started_queue=None, parent_pid: int | None = None) -> None:
+    """Start of a worker process: remember the stop flag; take Ctrl-C and SIGTERM only while rendering; die with the parent.
 
     An idle worker that took Ctrl-C would die with a traceback and break the
-    pool; a rendering one takes it once, as KeyboardInterrupt, so the render
-    removes its temporary file (the main process also forwards Ctrl-C to its
-    workers, so a second one must not cut that clean-up short).
+    pool; a rendering one takes SIGINT or SIGTERM through :mod:`audition.interrupt`
+    (recorded at once, raised where no library callback can lose it), so the
+    render removes its temporary file; a second signal (the main process
+    forwards Ctrl-C to its workers) does not cut that clean-up short.
+
+    The worker must not outlive the main process (killed, even by SIGKILL): the
+    kernel sends it SIGTERM when its parent dies (Linux ``prctl(PR_SET_PDEATHSIG)``,
+    prctl(2)), and a thread watching the parent's pid does the same where prctl
+    is missing. Then an idle worker exits at once and a rendering one cleans up
+    first (:func:`_exit_if_orphaned`).
     """
-    import signal
+    global _STOP, _STARTED, _PARENT
+    from audition import interrupt
 
-    global _STOP, _STARTED
     _STOP, _STARTED = stop_event, started_queue
+    _PARENT = parent_pid if parent_pid is not None else os.getppid()
 
-    def on_sigint(signum, frame):
-        global _RUNNING
-        if _RUNNING:
-            _RUNNING = False
-            raise KeyboardInterrupt
+    def active(signum):
+        if _orphaned() and not _RUNNING:
+            os._exit(128 + signum)  # nothing of a job to clean up: go at once
+        return _RUNNING  # between jobs a Ctrl-C is the main process's to act on
 
-    signal.signal(signal.SIGINT, on_sigint)
+    interrupt.install(active)
+    _die_with_parent()
+    interrupt.unblock()  # the main process forks its workers with the signals blocked (see pool._one_pool)
+    if _orphaned():  # the parent died before the watch was set
+        os._exit(143)
+
+
+#: The pid of the main process a worker serves (set by :func:`_init_worker`).
+_PARENT = None
+
+
+def _orphaned() -> bool:
+    return _PARENT is not None and os.getppid() != _PARENT
+
+
+def _die_with_parent() -> None:
+    """Have SIGTERM sent to this process when its parent dies: prctl where there is one, and a watching thread."""
+    import signal
+    import threading
+
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        PR_SET_PDEATHSIG = 1  # linux/prctl.h
+        libc.prctl(PR_SET_PDEATHSIG, int(signal.SIGTERM), 0, 0, 0)
+    except (OSError, AttributeError):
+        pass  # not Linux: the thread below does it alone
+
+    def watch():
+        import time
+
+        while not _orphaned():
+            time.sleep(0.5)
+        os.kill(os.getpid(), signal.SIGTERM)
+
+    threading.Thread(target=watch, name="audition-parent-watch", daemon=True).start()
+
+
+def _exit_if_orphaned() -> None:
+    """A worker whose main process is gone has no one to hand its row to: it ends here (its job cleaned up)."""
+    if _orphaned():
+        from audition import interrupt
+
+        os._exit(interrupt.exit_status() or 143)
 
 
 # ---------------------------------------------------------------------------
@@ -183,6 +240,10 @@ def row_from_render(row: dict, r: dict) -> dict:
     for what in ("predicted", "measured"):
         if r.get(what):
             _flatten(what, r[what], row)
+    # archive metadata (issue 15): the output's fixity and what of the clip's chunks it does not carry
+    row["output_sha256"] = r.get("output_sha256")
+    row["metadata_dropped"] = "; ".join(f"{m['chunk']}: {m['reason']}" for m in r.get("metadata") or ()
+                                        if m.get("fate") == "dropped")
     if r.get("warnings"):
         row["warnings"] = "; ".join(_one_line(w) for w in r["warnings"])
     return row
@@ -232,13 +293,36 @@ def finished_record(job: Job, rec: dict | None = None) -> dict | None:
     rec = _read_sidecar(job) if rec is None else rec
     if rec is None or rec.get("settings") != job.settings():
         return None
-    if job.noise is not None and not rec.get("measured"):
-        return None  # killed between the render and its measurement: the job is not finished
+    if job.noise is not None and not (rec.get("measured") or rec.get("figures_missing")):
+        return None  # an output of a run older than the commit of output, sidecar and figures as one unit
     try:
         sha = reader.sha256_file(job.input)
     except OSError:
         return None
-    return rec if rec.get("input", {}).get("sha256") == sha else None
+    if rec.get("input", {}).get("sha256") != sha:
+        return None
+    return rec if _output_intact(job.output, rec) else None
+
+
+def _output_intact(path: str, rec: dict) -> bool:
+    """The output is the one its sidecar describes: its own SHA-256 and size, and every frame of the input.
+
+    An output whose sidecar records no SHA-256 of its own (audition before issue 16) is not trusted.
+    """
+    from audition.io import reader
+
+    out = rec.get("output") or {}
+    inp = rec.get("input") or {}
+    if not out.get("sha256") or out.get("frames") is None or out.get("frames") != inp.get("frames"):
+        return False
+    try:
+        if out.get("size_bytes") is not None and os.path.getsize(path) != out["size_bytes"]:
+            return False
+        if reader.sha256_file(path) != out["sha256"]:
+            return False
+        return reader.info(path).frames == out["frames"]
+    except (OSError, AuditionError):
+        return False
 
 
 def remove_stale_parts(output: str) -> list[str]:
@@ -253,13 +337,22 @@ def remove_stale_parts(output: str) -> list[str]:
 # ---------------------------------------------------------------------------
 
 
+def _provenance(job: Job) -> dict | None:
+    p = {"batch_run": job.run} if job.run else {}
+    if job.command_line:
+        p["command_line"] = list(job.command_line)
+    return p or None
+
+
 def run_job(job: Job) -> dict:
     """Render one job; the row of the report. Never raises: a failure is a row with a one-line reason."""
     global _RUNNING
     t0 = time.perf_counter()
     row = empty_row(job)
+    from audition import interrupt
+
     try:
-        if _STOP is not None and _STOP.is_set():
+        if (_STOP is not None and _STOP.is_set()) or interrupt.received() is not None:
             row["reason"] = "interrupted before it started"
             return row
         if _STARTED is not None:
@@ -289,17 +382,21 @@ def run_job(job: Job) -> dict:
         overwrite = job.overwrite or job.resume or ours or side is None
         r = pipeline.render_job(job.input, job.output, spec=job.spec, auto=job.auto, noise=job.noise,
                                 subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite,
-                                provenance={"batch_run": job.run} if job.run else None, threads=job.threads)
+                                provenance=_provenance(job), threads=job.threads, container=job.container,
+                                strict_metadata=job.strict_metadata, accept_truncated=job.accept_truncated,
+                                figures_optional=True)
         row_from_render(row, r)
         if r.get("output") is None:
             # --auto answered "no filter": neither rendered nor failed, nothing written
             row.update(status="no filter", reason=_one_line(r.get("no_filter_reason") or ""), output="")
         else:
-            row.update(status="done", reason="")
+            # rendered; figures that could not be made are left empty, and the row says why
+            row.update(status="done", reason=_reason_of(job, r.get("figures_missing") or ""))
     except AuditionError as exc:
-        # the row already names the clip: drop the message's own "'path': " in front
-        reason = _one_line(exc)
-        row.update(status="failed", reason=reason.removeprefix(f"{job.input!r}: ") or reason)
+        if interrupt.received() is not None:  # a read cut short by the signal: the signal is the news
+            row.update(status="not run", reason="interrupted while rendering (nothing of it was kept)")
+        else:
+            row.update(status="failed", reason=_reason_of(job, exc))
     except KeyboardInterrupt:
         row.update(status="not run", reason="interrupted while rendering (nothing of it was kept)")
     except MemoryError:
@@ -308,5 +405,13 @@ def run_job(job: Job) -> dict:
         row.update(status="failed", reason=_one_line(f"internal error {type(exc).__name__}: {exc}"))
     finally:
         _RUNNING = False
+        _exit_if_orphaned()
     row["seconds"] = time.perf_counter() - t0
     return row
+
+
+def _reason_of(job: Job, text) -> str:
+    # the row already names the clip: drop the message's own "'path': " in front
+    reason = _one_line(text) if str(text) else ""
+    return reason.replace(f"{job.input!r}: ", "", 1) if reason.startswith(("no figures: ", "no measurement: ",
+                                                                           f"{job.input!r}: ")) else reason

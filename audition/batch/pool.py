@@ -110,9 +110,11 @@ def _one_pool(jobs, n_workers, ctx, stop, gather):
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
     from concurrent.futures.process import BrokenProcessPool
 
+    from audition import interrupt
+
     started_q = ctx.SimpleQueue()
     pool = ProcessPoolExecutor(min(n_workers, len(jobs)), mp_context=ctx, initializer=_init_worker,
-                               initargs=(stop, started_q))
+                               initargs=(stop, started_q, os.getpid()))
     futures = {}
     gathered: set[int] = set()
     began: set[int] = set()
@@ -127,10 +129,19 @@ def _one_pool(jobs, n_workers, ctx, stop, gather):
                 return
 
     try:
-        for job in jobs:
-            futures[pool.submit(run_job, job)] = job
+        # the workers are forked (or spawned) by the first submit: with SIGINT and SIGTERM blocked,
+        # so a signal that lands meanwhile waits for a worker's own handler (see jobs._init_worker)
+        # instead of striking the child's start-up code; here it is taken when they are unblocked
+        mask = interrupt.block_in_thread()
+        try:
+            with interrupt.shielded():
+                for job in jobs:
+                    futures[pool.submit(run_job, job)] = job
+        finally:
+            interrupt.restore_mask(mask)
         pending = set(futures)
         while pending:
+            interrupt.check()  # a signal whose KeyboardInterrupt a callback or finalizer lost
             done, pending = wait(pending, timeout=0.5, return_when=FIRST_COMPLETED)
             drain()
             for f in done:

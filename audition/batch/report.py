@@ -108,10 +108,25 @@ def _check_new_file(path: str, outdir: str | None, what: str, hint: str) -> None
         raise OutputRefused(f"{what} {path!r}: the folder {folder!r} does not exist")
     if os.path.isdir(path):
         raise OutputRefused(f"{what} {path!r}: is a folder; {hint}")
+    # the folder, or the first of its parents that exists when it is to be made below OUTDIR
+    there = folder
+    while not os.path.isdir(there) and os.path.dirname(there) != there:
+        there = os.path.dirname(there)
+    if not os.access(there, os.W_OK | os.X_OK):
+        raise OutputRefused(f"{what} {path!r}: the folder {there!r} is not writable; nothing was rendered")
 
 
 def check_report_path(path, outdir: str | None = None) -> tuple[str, str]:
-    """Refuse a report whose folder is missing (checked before the batch starts); OUTDIR itself is made later."""
+    """Refuse a report whose folder is missing or not writable, or a FOLDER (checked before the batch starts).
+
+    ``--report FOLDER`` would write ``FOLDER.csv`` and ``FOLDER.json`` beside the folder, not in it:
+    refused, with the name that was probably meant. OUTDIR itself is made later.
+    """
+    p = os.fspath(path)
+    if os.path.isdir(p) or p.endswith(("/", os.sep)):
+        inside = os.path.join(p, "batch-report")
+        raise OutputRefused(f"report {p!r}: is a folder; the report is FILE.csv and FILE.json, so name a file "
+                            f"stem such as {inside!r}")
     csv_path, json_path = report_paths(path)
     for p in (csv_path, json_path):
         _check_new_file(p, outdir, "report", "name a file")

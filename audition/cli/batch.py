@@ -40,6 +40,12 @@ def add_parser(sub) -> None:
                      help="skip clips whose output exists with a sidecar of the same input bytes (SHA-256) and "
                           "settings; render the others again, replacing what does not match")
     out.add_argument("--overwrite", action="store_true", help="render every clip, replacing existing outputs")
+    out.add_argument("--accept-truncated", action="store_true",
+                     help="render clips whose header declares more frames than the file holds (what they hold; "
+                          "each sidecar records both counts); without it such a clip fails")
+    from audition.cli.render import add_archive_options
+
+    add_archive_options(out)
     out.add_argument("--no-figures", dest="figures", action="store_false",
                      help="render only: no survey, prediction or measurement per clip (faster; the report then "
                           "has no SNR or treble figures)")
@@ -228,9 +234,15 @@ def run(args) -> int:
     jobs = batch.plan_jobs(args.sources, args.outdir, spec=spec, auto=auto, noise=noise_reference(args, auto),
                            filter_label=label, subtype=args.subtype, dither=args.dither, seed=args.seed,
                            resume=args.resume, overwrite=args.overwrite)
+    from dataclasses import replace
+
+    # archive metadata (issue 15): the container, the strictness and the command line, for every clip
+    jobs = [replace(j, container=args.container, strict_metadata=args.strict_metadata,
+                    command_line=tuple(args.command_line)) for j in jobs]
+    if args.accept_truncated:
+        jobs = [replace(j, accept_truncated=True) for j in jobs]
     report_path = args.report or os.path.join(args.outdir, DEFAULT_REPORT)
-    if args.report:
-        batch.check_report_path(report_path, args.outdir)
+    batch.check_report_path(report_path, args.outdir)  # the default one too: OUTDIR may be read-only
     if args.plot:
         batch.check_plot_path(args.plot, args.outdir)
     plot = _check_side_outputs(args, jobs, report_path)
@@ -264,6 +276,9 @@ def run(args) -> int:
             print(json.dumps(json.load(fh), indent=2))
     elif not args.quiet:
         print(format_summary(result, paths))
+    for row in result.rows:
+        if row.get("metadata_dropped"):
+            print(f"audition batch: {row['output']}: dropped {row['metadata_dropped']}", file=sys.stderr)
     if result.interrupted:
         return 130
     if result.failed:

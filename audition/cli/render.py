@@ -10,6 +10,7 @@ import time
 from audition.cli.filteropts import add_filter_options, add_source_options, filter_source, no_filter
 from audition.cli.noiseopts import add_noise_options
 from audition.cli.values import SEED
+from audition.cli.recordopts import add_record_options, record_provenance
 
 HELP = "filter a sound file into a new one (the original is never touched), with a JSON sidecar record"
 #: Kept equal to audition.io.formats.OUTPUT_SUBTYPES (tests check it) so the help needs no soundfile import.
@@ -37,11 +38,16 @@ def add_parser(sub) -> None:
     out.add_argument("--seed", type=SEED, default=0, metavar="N", help="seed of the dither (default 0): "
                      "the same inputs and seed give the same bytes")
     out.add_argument("--overwrite", action="store_true", help="replace an existing OUT and OUT.json (never IN)")
+    out.add_argument("--accept-truncated", action="store_true",
+                     help="render an input whose header declares more frames than the file holds (what it holds; "
+                          "the sidecar records both counts); without it such a file is refused")
+    add_archive_options(out)
     out.add_argument("--report", metavar="FILE.html", help="also write one self-contained HTML page (pictures inline, "
                      "no network): survey, the filter and why, trade-off, predicted against measured, provenance; "
                      "surveys with the automatic noise reference unless noise options are given")
     out.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
     out.add_argument("--quiet", action="store_true", help="no progress bar and no summary (warnings still shown)")
+    add_record_options(p)
     p.set_defaults(run=run)
 
 
@@ -161,15 +167,36 @@ def _db(v) -> str:
     return "-" if v is None else f"{v:.2f} dB"
 
 
+def add_archive_options(group) -> None:
+    """``--container`` and ``--strict-metadata`` (render and batch): what becomes of an archive file's chunks."""
+    import argparse
+
+    group.add_argument("--container", choices=("wav", "rf64", "w64"),
+                       help="container of the output for WAV inputs (default: the input's; RF64 when a WAV output "
+                            "would pass 4 GiB); w64 carries none of the input's chunks")
+    group.add_argument("--strict-metadata", action=argparse.BooleanOptionalAction, default=None,
+                       help="refuse to write when any chunk or tag of the input would be dropped (default: on for "
+                            "Broadcast Wave and RF64/BW64 inputs, off for others)")
+
+
+def print_dropped(prog: str, output, metadata) -> None:
+    """One line on stderr for each chunk of the input the output does not carry."""
+    for m in metadata or ():
+        if m.get("fate") == "dropped":
+            print(f"{prog}: {output}: {m['chunk']!r} dropped: {m['reason']}", file=sys.stderr)
+
+
 def run(args) -> int:
     from audition.cli.noiseopts import gave_noise, noise_from_args
     from audition.io import reader
     from audition.pipeline import render_job
 
-    info = reader.info(args.input)
+    with reader.accept_truncated(*([args.input] if args.accept_truncated else [])):
+        info = reader.info(args.input)
     spec, auto = filter_source(args)
     if spec is None and auto is None:
         raise no_filter(auto=True)
+    provenance = record_provenance(args)  # before anything is written: a bad --abx-log fails early
     noise = noise_from_args(args) if (gave_noise(args) or auto is not None or args.report) else None
     bar = None
     if not args.quiet and not args.json and sys.stderr.isatty() and info.seconds > PROGRESS_MIN_SECONDS:
@@ -177,12 +204,15 @@ def run(args) -> int:
     try:
         j = render_job(args.input, args.output, spec=spec, auto=auto, noise=noise, subtype=args.subtype,
                        dither=args.dither, seed=args.seed, overwrite=args.overwrite, progress=bar,
-                       report_path=args.report)
+                       report_path=args.report, provenance={**(provenance or {}), "command_line": args.command_line},
+                       container=args.container, strict_metadata=args.strict_metadata,
+                       accept_truncated=args.accept_truncated)
     finally:
         if bar is not None:
             bar.close()
     for msg in j.get("warnings") or ():
         print(f"audition render: warning: {msg}", file=sys.stderr)
+    print_dropped("audition render", args.output, j.get("metadata"))
     if j.get("output") is None:
         # --auto answered "no filter": nothing rendered, one clear line (and the report, if asked)
         if args.json:

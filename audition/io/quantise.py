@@ -42,8 +42,9 @@ class Quantiser:
     """
 
     def __init__(self, bits: int, *, dither: bool = True, seed: int = 0):
-        if bits not in (8, 16, 24, 32):
-            raise BadParameter(f"bits={bits!r}: allowed are 8, 16, 24, 32")
+        # any word length from 8 to 32: a WAVE_FORMAT_EXTENSIBLE file may hold, say, 20 valid bits in 24
+        if not isinstance(bits, (int, np.integer)) or not 8 <= bits <= 32:
+            raise BadParameter(f"bits={bits!r}: allowed are 8 to 32")
         self.bits = int(bits)
         self.scale = float(2 ** (self.bits - 1))
         self.dither = bool(dither)

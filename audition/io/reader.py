@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import soundfile as sf
 
+from audition import interrupt
 from audition.errors import BadInputFile, BadParameter
 from audition.io.formats import BLOCK_FRAMES, FLOAT_SUBTYPES, INTEGER_BITS, _byte_layout
 from audition.io.messages import _sf_message
@@ -84,6 +85,8 @@ class AudioInfo:
     subtype: str
     size_bytes: int
     metadata: dict = field(default_factory=dict)
+    #: the frame count a truncated file's header declares, when it was accepted (see :func:`accept_truncated`)
+    frames_declared: int | None = None
 
     @property
     def seconds(self) -> float:
@@ -101,6 +104,7 @@ class _HashingFile:
 
     def __init__(self, path: str):
         self._f = open(path, "rb", buffering=0)
+        self.size = os.fstat(self._f.fileno()).st_size
         self._sha = hashlib.sha256()
         self.hashed_to = 0
 
@@ -131,13 +135,21 @@ class _HashingFile:
             self.hashed_to = end
 
     def hexdigest(self) -> str:
-        """SHA-256 of the whole file, reading only what has not been hashed yet."""
+        """SHA-256 of the whole file, reading only what has not been hashed yet.
+
+        Raises :class:`OSError` (ESTALE) when the bytes hashed are not the file's size at
+        opening: the file changed while it was read, and no digest would describe it.
+        """
         sha = self._sha.copy()
         fd = self._f.fileno()
         pos = self.hashed_to
         while chunk := os.pread(fd, 1 << 20, pos):
             sha.update(chunk)
             pos += len(chunk)
+        if pos != self.size:
+            import errno
+
+            raise OSError(errno.ESTALE, f"{pos} bytes hashed but the file had {self.size} when it was opened")
         return sha.hexdigest()
 
     def close(self):
@@ -175,6 +187,7 @@ class AudioReader:
             raise BadInputFile(f"{p!r}: is a folder, not a sound file")
         if not os.path.exists(p):
             raise BadInputFile(f"{p!r}: a broken link (its target does not exist)")
+        _check_regular(p)
         try:
             size = os.path.getsize(p)
             raw = _HashingFile(p) if hash_input else open(p, "rb")
@@ -189,10 +202,21 @@ class AudioReader:
         try:
             # Without hashing, libsndfile reads the descriptor itself: no Python call (holding the GIL)
             # for every chunk it reads, so a reading thread runs beside the caller's work.
-            self._sf = sf.SoundFile(raw if hash_input else raw.fileno(), mode="r", closefd=False)
+            with interrupt.shielded():  # libsndfile calls back into Python (the hashing file) as it opens
+                self._sf = sf.SoundFile(raw if hash_input else raw.fileno(), mode="r", closefd=False)
+            fmt_name = self._sf.format
         except sf.LibsndfileError as exc:
-            raw.close()
-            raise BadInputFile(f"{p!r}: not a sound file libsndfile can read ({_sf_message(exc)})") from None
+            # a valid RF64/BW64 libsndfile refuses (odd-sized chunks, BW64): audition.io.archive reads its chunks
+            from audition.io.archive.riff import open_wave64
+
+            try:
+                opened = open_wave64(p, raw)
+            except (OSError, ValueError, sf.LibsndfileError):
+                opened = None
+            if opened is None:
+                raw.close()
+                raise BadInputFile(f"{p!r}: not a sound file libsndfile can read ({_sf_message(exc)})") from None
+            self._sf, fmt_name, _ = opened
         except (RuntimeError, TypeError) as exc:
             raw.close()
             raise BadInputFile(f"{p!r}: not a sound file libsndfile can read ({exc})") from None
@@ -200,9 +224,16 @@ class AudioReader:
         if f.frames <= 0:
             self.close()
             raise BadInputFile(f"{p!r}: a {f.format} header with no audio frames")
+        declared = _declared_frames(f)
+        if declared is not None and declared > f.frames and not truncation_accepted(p):
+            self.close()
+            raise BadInputFile(f"{p!r}: truncated: its header declares {declared} frames but the file holds only "
+                               f"{f.frames} ({f.frames / f.samplerate:.3f} s of {declared / f.samplerate:.3f} s); "
+                               "find the complete transfer, or give --accept-truncated to render what is there")
         self.info = AudioInfo(path=p, rate_hz=float(f.samplerate), channels=f.channels, frames=f.frames,
-                              format=f.format, subtype=f.subtype, size_bytes=size,
-                              metadata=_clean_metadata(f.copy_metadata()))
+                              format=fmt_name, subtype=f.subtype, size_bytes=size,
+                              metadata=_clean_metadata(_text_fields(f)),
+                              frames_declared=declared if declared is not None and declared > f.frames else None)
         # Integer samples cannot be NaN; only float files need the finiteness check.
         self._check_finite = f.subtype in FLOAT_SUBTYPES or f.subtype not in INTEGER_BITS
         self._layout = _byte_layout(f)
@@ -218,10 +249,19 @@ class AudioReader:
     def read(self, n: int) -> np.ndarray:
         """The next ``n`` frames (fewer at the end, none after it) as float64 (frames, channels)."""
         try:
-            x = self._read_bytes(n) if self._layout is not None else self._sf.read(n, dtype="float64",
-                                                                                   always_2d=True)
+            # shielded: a Ctrl-C inside libsndfile's call back into Python (the hashing file) would be
+            # lost there and end the read early as if the file ended; it is raised here, after the read
+            with interrupt.shielded():
+                x = self._read_bytes(n) if self._layout is not None else self._sf.read(n, dtype="float64",
+                                                                                       always_2d=True)
         except (sf.LibsndfileError, RuntimeError) as exc:
+            interrupt.check()
             raise BadInputFile(f"{self.path!r}: read failed at frame {self.frames_read} ({exc})") from None
+        interrupt.check()  # a signal recorded in a reading thread, or in a callback of the main one
+        if len(x) < n and self.frames_read + len(x) < self.frames:
+            # never a short file taken for a whole one: the end comes where the header says
+            raise BadInputFile(f"{self.path!r}: the reading ended at frame {self.frames_read + len(x)} but the "
+                               f"header declares {self.frames} frames (a damaged or truncated file?)")
         if self._check_finite and len(x) and not np.isfinite(x).all():
             idx = int(np.flatnonzero(~np.isfinite(x))[0])
             frame, ch = self.frames_read + idx // x.shape[1], idx % x.shape[1] + 1
@@ -261,7 +301,11 @@ class AudioReader:
         """SHA-256 of the input file's bytes (hashed while reading; the rest read now)."""
         if not isinstance(self._raw, _HashingFile):
             raise RuntimeError("AudioReader was opened with hash_input=False")
-        return self._raw.hexdigest()
+        try:
+            return self._raw.hexdigest()
+        except OSError as exc:
+            raise BadInputFile(f"{self.path!r}: changed while it was being read ({exc.strerror or exc}); "
+                               "no output was made from it") from None
 
     def close(self):
         try:
@@ -278,6 +322,81 @@ class AudioReader:
         return False
 
 
+def _check_regular(p: str) -> None:
+    """Refuse a FIFO, device or socket: reading one could wait for ever or never end."""
+    import stat
+
+    try:
+        mode = os.stat(p).st_mode
+    except OSError:
+        return  # the opening says what is wrong
+    if not stat.S_ISREG(mode):
+        kind = ("a FIFO (named pipe)" if stat.S_ISFIFO(mode) else "a device" if stat.S_ISCHR(mode) or
+                stat.S_ISBLK(mode) else "a socket" if stat.S_ISSOCK(mode) else "not a regular file")
+        raise BadInputFile(f"{p!r}: is {kind}, not a sound file; give a regular file (copy the stream to one first)")
+
+
+#: real paths of inputs whose truncation the user accepted (``--accept-truncated``), see :func:`accept_truncated`
+_TRUNCATED_OK: dict[str, int] = {}
+
+
+def truncation_accepted(path) -> bool:
+    return os.path.realpath(path) in _TRUNCATED_OK
+
+
+class accept_truncated:
+    """``with accept_truncated(path): ...``: a truncated ``path`` is read (what it holds) instead of refused."""
+
+    def __init__(self, *paths):
+        self.paths = [os.path.realpath(p) for p in paths if p]
+
+    def __enter__(self):
+        for p in self.paths:
+            _TRUNCATED_OK[p] = _TRUNCATED_OK.get(p, 0) + 1
+        return self
+
+    def __exit__(self, *exc):
+        for p in self.paths:
+            n = _TRUNCATED_OK.get(p, 0) - 1
+            if n <= 0:
+                _TRUNCATED_OK.pop(p, None)
+            else:
+                _TRUNCATED_OK[p] = n
+        return False
+
+
+#: what libsndfile's log says of a header that promises more than the file holds (libsndfile 1.2 wording)
+_COUNT_IN_HEADER = re.compile(r"from 'COMM' chunk \((\d+)\)|value from 'ds64' chunk of (\d+)")
+_SIZE_IN_HEADER = re.compile(r"^\s*(?:RIFF|RIFX|FORM|riff)\s*:\s*(\d+)\s*\(should be (\d+)\)", re.M)
+_SAMPLE_BYTES = {"PCM_S8": 1, "PCM_U8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8}
+
+
+def _declared_frames(f) -> int | None:
+    """The frame count the header declares, when it is more than libsndfile found in the file; else None.
+
+    libsndfile opens a WAVE, AIFF, RF64 or W64 file cut short with the frames it holds
+    and notes the header's figure in its log: the frame count of an AIFF ``COMM`` or
+    RF64 ``ds64`` chunk, or the container size of a RIFF or FORM header with the size
+    the file has ("should be"). FLAC's STREAMINFO count is libsndfile's frame count
+    itself; a FLAC cut short fails in the reading (see :meth:`AudioReader.read`).
+    """
+    try:
+        log = f.extra_info
+    except Exception:  # a reader without a log (audition.io.archive's): nothing to say
+        return None
+    m = _COUNT_IN_HEADER.search(log)
+    if m:
+        n = int(m.group(1) or m.group(2))
+        return n if n > f.frames else None
+    m = _SIZE_IN_HEADER.search(log)
+    width = _SAMPLE_BYTES.get(f.subtype)
+    if m and width:
+        missing = int(m.group(1)) - int(m.group(2))
+        extra = round(missing / (width * f.channels))  # to the nearest: the file may end inside a frame
+        return f.frames + extra if extra > 0 else None
+    return None
+
+
 def sha256_file(path) -> str:
     """SHA-256 of a file's bytes, hex."""
     h = hashlib.sha256()
@@ -285,6 +404,24 @@ def sha256_file(path) -> str:
         while chunk := f.read(1 << 20):
             h.update(chunk)
     return h.hexdigest()
+
+
+def _text_fields(f) -> dict:
+    """The text fields libsndfile reads, decoded as UTF-8 or, where they are not UTF-8, as Latin-1.
+
+    soundfile's ``copy_metadata`` decodes as UTF-8 with replacement, which turns the
+    Latin-1 text of older LIST INFO chunks into U+FFFD; the bytes say which it is.
+    """
+    out = {}
+    for name, code in sf._str_types.items():
+        ptr = sf._snd.sf_get_string(f._file, code)
+        if ptr:
+            b = sf._ffi.string(ptr)
+            try:
+                out[name] = b.decode("utf-8")
+            except UnicodeDecodeError:
+                out[name] = b.decode("latin-1")
+    return out
 
 
 def _clean_metadata(meta: dict) -> dict:

@@ -173,14 +173,20 @@ class AtomicWriter:
 
     def __init__(self, path, rate_hz: float, channels: int, *, format: str, subtype: str, overwrite: bool = False,
                  inputs=(), metadata: dict | None = None, dither: bool = True, seed: int = 0,
-                 frames_hint: int | None = None):
+                 frames_hint: int | None = None, carry=None, valid_bits: int | None = None):
         self.path = os.fspath(path)
+        # archive metadata (issue 15): ``carry`` (audition.io.archive.Carry) puts the input's chunks
+        # back around the audio in finish(); ``valid_bits`` dithers at a shorter valid word length
+        self.carry = carry
+        self.rate_hz = float(rate_hz)
         self.format = format
         self.subtype = check_output_subtype(subtype, format, self.path)
         check_output_path(self.path, inputs=inputs, overwrite=overwrite)
         check_extension(self.path, format)
         self.bits = INTEGER_BITS.get(subtype)
-        self.quantiser = Quantiser(self.bits, dither=dither, seed=seed) if self.bits else None
+        self.valid_bits = valid_bits if self.bits and valid_bits and 8 <= valid_bits < self.bits else None
+        self._scale = float(2 ** (self.bits - 1)) if self.bits else 1.0  # the meter's units: container LSBs
+        self.quantiser = Quantiser(self.valid_bits or self.bits, dither=dither, seed=seed) if self.bits else None
         if frames_hint is not None:
             self._check_room(frames_hint, channels)
         self._tmp = _TempFile(self.path, replace=overwrite)  # never a file that appeared meanwhile, unless overwriting
@@ -193,6 +199,7 @@ class AtomicWriter:
                 # give the same bytes). sndfile.h: SFC_SET_ADD_PEAK_CHUNK = 0x1050, SF_FALSE = 0.
                 sf._snd.sf_command(self._sf._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
             self.metadata_written = []
+            self.metadata_given = dict(metadata or {})
             for k, v in (metadata or {}).items():
                 if k in METADATA_FIELDS and v:
                     try:
@@ -234,7 +241,9 @@ class AtomicWriter:
         """
         if self.quantiser is not None:
             y, clipped, peak, unclipped = self.quantiser.quantise(x)
-            units = peak * self.quantiser.scale  # the meter reads the integers, in LSBs
+            if self.valid_bits:  # valid-bit integers stored left-justified in the container's word
+                np.left_shift(y, self.bits - self.valid_bits, out=y)
+            units = peak * self._scale  # the meter reads the integers, in LSBs
         else:
             a = float(np.max(np.abs(x), initial=0.0))
             clipped = int(np.count_nonzero(np.abs(x) > 1.0)) if a > 1.0 else 0
@@ -290,7 +299,7 @@ class AtomicWriter:
     @property
     def stats(self) -> WriteStats:
         """What was written so far (the true peak is complete once :meth:`finish` has run)."""
-        scale = self.quantiser.scale if self.quantiser is not None else 1.0
+        scale = self._scale
         return WriteStats(self._frames, self._peak, self._clipped, self._unclipped, self.meter.peak / scale)
 
     def finish(self) -> None:
@@ -301,6 +310,8 @@ class AtomicWriter:
         self.meter.finish()
         try:
             self._sf.close()
+            if self.carry is not None and self.carry.active:
+                self._tmp = self.carry.apply(self._tmp, self)
             self._tmp.sync()
         except (sf.LibsndfileError, RuntimeError, OSError) as exc:
             raise OutputRefused(f"{self.path!r}: finishing the file failed ({_os_message(exc)}); "
