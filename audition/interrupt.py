@@ -56,8 +56,23 @@ def _handler(signum, frame):
     if _received is not None:
         return  # a second signal must not cut short the clean-up the first one started
     _received = signum
-    if _depth == 0:
+    if _depth == 0 and not _cannot_raise(frame):
         raise KeyboardInterrupt
+
+
+def _cannot_raise(frame) -> bool:
+    """Whether an exception raised in ``frame`` would be printed as "ignored" and lost.
+
+    Finalizers (``__del__``), the import system's callbacks (a weakref callback that
+    releases a module lock: a signal during a lazy import lands there) and the
+    at-fork hooks run where Python can only report an exception, not raise it. The
+    signal stays recorded; the next :func:`check` raises it.
+    """
+    code = getattr(frame, "f_code", None)
+    if code is None:
+        return False
+    return code.co_filename.startswith("<frozen importlib") or code.co_name in ("__del__", "_releaseLock",
+                                                                               "_after_at_fork_child_reinit_locks")
 
 
 def install(active=None) -> None:
