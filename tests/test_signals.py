@@ -400,3 +400,30 @@ def test_batch_refuses_a_report_folder_and_a_read_only_report_place_before_any_c
         assert not out.exists()
     finally:
         ro.chmod(0o755)
+
+
+def test_a_signal_in_a_finalizer_or_import_callback_is_kept_for_the_next_check():
+    # Python prints an exception raised in a finalizer or in importlib's lock callback as "Exception ignored"
+    # and drops it (CPython documentation, "__del__" and weakref callbacks); the handler must record the
+    # signal there without raising, and the next check() raises it.
+    import types
+
+    from audition import interrupt
+
+    interrupt.install()
+    try:
+        for filename, name in (("<frozen importlib._bootstrap>", "cb"), ("x.py", "__del__")):
+            interrupt.uninstall()
+            interrupt.install()
+            frame = types.SimpleNamespace(f_code=types.SimpleNamespace(co_filename=filename, co_name=name))
+            interrupt._handler(signal.SIGTERM, frame)  # no raise here
+            assert interrupt.received() == signal.SIGTERM and interrupt.exit_status() == 143
+            with pytest.raises(KeyboardInterrupt):
+                interrupt.check()
+        interrupt.uninstall()
+        interrupt.install()
+        ordinary = types.SimpleNamespace(f_code=types.SimpleNamespace(co_filename="x.py", co_name="work"))
+        with pytest.raises(KeyboardInterrupt):
+            interrupt._handler(signal.SIGINT, ordinary)
+    finally:
+        interrupt.uninstall()
