@@ -29,6 +29,8 @@ from audition.io.formats import BLOCK_FRAMES, OUTPUT_SUBTYPES
 from audition.io.reader import AudioReader
 from audition.io.sidecar import SidecarWriter, sidecar_path, utc_now_iso
 from audition.io.threads import END, get_unless_stopped, put_unless_stopped, read_ahead
+from audition.io.commit import commit_together
+from audition.io.tempfiles import remove_leftover_parts
 from audition.io.writer import AtomicWriter, check_output_path
 from audition.streamfilter import StreamingFilter
 
@@ -172,8 +174,9 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
     hold : list, optional
         Leave the finished output and sidecar uncommitted: append their writers
         (:class:`AtomicWriter`, then :class:`SidecarWriter` with its ``record``) to
-        this list, for the caller to commit with other files by :func:`commit_together`
-        (or abort). The output's finished bytes are then in ``finished_path(hold[0])``.
+        this list, for the caller to commit with other files by
+        :func:`audition.io.commit.commit_together` (or abort). The output's finished bytes
+        are then in ``audition.io.commit.finished_path(hold[0])``.
 
     Returns
     -------
@@ -192,7 +195,7 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
     check_output_path(out_path, inputs=[in_path], overwrite=overwrite)
     if side_path is not None:
         check_output_path(side_path, inputs=[in_path], overwrite=overwrite)
-    remove_stale_parts(out_path, side_path)  # what a killed render of this output left (no live run's)
+    remove_leftover_parts(out_path, side_path)  # what a killed render of this output left (no live run's)
     with AudioReader(in_path, hash_input=True) as reader:
         if abs(design.rate_hz - reader.rate_hz) > 1e-9 * reader.rate_hz:
             raise BadParameter(f"{in_path!r}: the design is for {design.rate_hz:g} Hz but the file is at "
@@ -212,7 +215,6 @@ def render_file(in_path, out_path, design, *, subtype: str | None = None, dither
             carry.processing = processing_text(design, writer)
         try:
             interrupt.check()
-            _mark_alive(writer)
             filt = StreamingFilter(design.sos, reader.channels)
             # timed from here: scipy's one-off import (about a second) says nothing of the render
             t0 = time.perf_counter()
@@ -362,11 +364,6 @@ def archive_record(writer, carry, design) -> dict:
 # ---------------------------------------------------------------------------
 
 
-def finished_path(writer) -> str:
-    """Where a finished, uncommitted writer's bytes are (its temporary file beside the target)."""
-    return writer._tmp.name
-
-
 def _check_whole(reader, frames_written: int) -> None:
     """Refuse to commit unless every frame the input declares was read and written."""
     from audition import interrupt
@@ -375,123 +372,6 @@ def _check_whole(reader, frames_written: int) -> None:
     if reader.frames_read != reader.frames or frames_written != reader.frames:
         raise BadInputFile(f"{reader.path!r}: {reader.frames_read} frames read and {frames_written} written of the "
                            f"{reader.frames} its header declares; nothing was kept")
-
-
-def _mark_alive(writer) -> None:
-    """Hold a lock on the output's temporary file while this process works on it (see :func:`remove_stale_parts`)."""
-    import fcntl
-
-    try:
-        fcntl.flock(writer._tmp.fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    except (OSError, AttributeError):
-        pass  # a file system without locks: stale files are then removed whoever made them
-
-
-#: A temporary file nothing has written to for this long, and that no process holds locked, is stale.
-STALE_AFTER_SECONDS = 2.0
-
-
-def remove_stale_parts(*targets) -> list[str]:
-    """Remove the temporary files that killed writers of ``targets`` left beside them; their names.
-
-    The files of the pattern :mod:`audition.io.tempfiles` gives (``.NAME.XXXXXXXX.part``)
-    that no living process holds locked and that nothing has written to for
-    :data:`STALE_AFTER_SECONDS`: a render running now to the same output keeps its own
-    (see :func:`_mark_alive`; the lock goes with its process, however it dies), and so
-    does one that has just made its file and not yet locked it.
-    """
-    import fcntl
-    import re
-    import time
-
-    from audition.io.tempfiles import _PART_SUFFIX
-
-    removed = []
-    for target in targets:
-        if not target:
-            continue
-        folder, name = os.path.split(os.path.abspath(os.fspath(target)))
-        pattern = re.compile(r"^\." + re.escape(name) + r"\.[A-Za-z0-9_]{8}" + re.escape(_PART_SUFFIX) + "$")
-        try:
-            entries = [e for e in os.listdir(folder) if pattern.match(e)]
-        except OSError:
-            continue
-        for entry in entries:
-            path = os.path.join(folder, entry)
-            try:
-                if time.time() - os.lstat(path).st_mtime < STALE_AFTER_SECONDS:
-                    continue  # written to just now: a living writer's
-                fd = os.open(path, os.O_RDONLY | os.O_NOFOLLOW)
-            except OSError:
-                continue
-            try:
-                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
-                continue  # a living writer's
-            finally:
-                os.close(fd)
-            try:
-                os.unlink(path)
-                removed.append(entry)
-            except FileNotFoundError:
-                pass
-    return removed
-
-
-def commit_together(items) -> None:
-    """Put finished files in place as one unit: all of them, or none (the files they replace untouched).
-
-    ``items``: prepared writers (:class:`AtomicWriter`, :class:`~audition.io.sidecar.PreparedText`),
-    committed in order. Signals wait until the end (:class:`audition.interrupt.shielded`),
-    and one recorded before the first rename stops the commit. A rename that fails
-    takes back those before it: a new file is removed, a replaced one is put back
-    from a hard link made aside just before (``.NAME.XXXXXXXX.part``, removed after).
-    """
-    import tempfile
-
-    from audition import interrupt
-
-    items = [it for it in items if it is not None]
-    with interrupt.shielded(raise_at_end=False):
-        try:
-            interrupt.check()
-        except KeyboardInterrupt:
-            for it in items:
-                it.abort()
-            raise
-        done, asides = [], []
-        try:
-            for it in items:
-                tmp = it._tmp
-                aside = None
-                if tmp.replace and os.path.lexists(tmp.target):
-                    folder, name = os.path.split(os.path.abspath(tmp.target))
-                    aside = tempfile.mktemp(dir=folder, prefix="." + name + ".", suffix=".part")
-                    try:
-                        os.link(tmp.target, aside)
-                        asides.append(aside)
-                    except OSError:
-                        aside = None  # no hard links here: the old file cannot be kept aside
-                it.commit()
-                done.append((tmp.target, aside))
-        except BaseException:
-            for it in items[len(done):]:
-                it.abort()
-            for target, aside in reversed(done):
-                try:
-                    if aside is not None:
-                        os.replace(aside, target)
-                    else:
-                        os.unlink(target)
-                except OSError:
-                    pass
-            raise
-        finally:
-            for aside in asides:
-                try:
-                    os.unlink(aside)
-                except FileNotFoundError:
-                    pass
 
 
 def sidecar_record(reader, writer, design, sha256: str, *, dither: bool, seed: int) -> dict:

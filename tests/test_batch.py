@@ -317,8 +317,10 @@ def test_stale_temporary_files_of_a_killed_render_are_removed(tmp_path):
     folder.mkdir()
     stale = [folder / ".x.wav.ab12_xYz.part", folder / ".x.wav.json.Q9w8e7r6.part"]
     keep = [folder / ".y.wav.ab12_xYz.part", folder / "x.wav.part"]
+    long_ago = time.time() - 3600  # left by a run killed some time ago (io.tempfiles.STALE_AFTER_SECONDS)
     for p in stale + keep:
         p.write_bytes(b"half")
+        os.utime(p, (long_ago, long_ago))
     assert sorted(batch.remove_stale_parts(str(folder / "x.wav"))) == sorted(p.name for p in stale)
     assert sorted(os.listdir(folder)) == sorted(p.name for p in keep)
 

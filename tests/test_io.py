@@ -481,3 +481,27 @@ def test_float_files_are_byte_reproducible(tmp_path, fmt, ext, subtype):
     # the samples are still exactly those given (float32 rounding for FLOAT)
     y, _ = reader.read_clip(a)
     np.testing.assert_array_equal(y, x.astype(np.float32) if subtype == "FLOAT" else x)
+
+
+def test_leftover_parts_are_removed_unless_a_living_writer_holds_them(tmp_path):
+    # flock(2) locks go with the open file and vanish when their process dies (Linux man page, flock(2)):
+    # a writer's own temporary file is held while it works; a killed writer's is not.
+    import time
+
+    from audition.io import tempfiles
+
+    target = str(tmp_path / "x.wav")
+    living = tempfiles._TempFile(target)  # held from the moment it is made
+    killed = tmp_path / ".x.wav.abcd1234.part"
+    young = tmp_path / ".x.wav.zzzz9999.part"
+    other = tmp_path / ".y.wav.abcd1234.part"
+    long_ago = time.time() - 3600
+    for p in (killed, other):
+        p.write_bytes(b"half")
+        os.utime(p, (long_ago, long_ago))
+    os.utime(living.name, (long_ago, long_ago))
+    young.write_bytes(b"just made")  # could be a writer that has not locked it yet
+    removed = tempfiles.remove_leftover_parts(target)
+    assert removed == [killed.name]
+    assert os.path.exists(living.name) and young.exists() and other.exists()
+    living.remove()

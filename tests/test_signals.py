@@ -265,7 +265,7 @@ def test_kill_during_render_auto_report_leaves_all_or_nothing_and_a_rerun_works(
     if present[0]:
         pytest.skip("the kill came after the commit")  # then nothing to test against
     long_ago = time.time() - 3600
-    for n in parts(tmp_path):  # as a re-run some time later finds them (render.STALE_AFTER_SECONDS)
+    for n in parts(tmp_path):  # as a re-run some time later finds them (io.tempfiles.STALE_AFTER_SECONDS)
         os.utime(tmp_path / n, (long_ago, long_ago))
     r = subprocess.run([sys.executable, "-m", "audition", "render", str(src), str(out), "--f0", "8000",
                         "--report", str(rep), "--quiet"], env=_env(), cwd=ROOT, capture_output=True, text=True)

@@ -329,7 +329,7 @@ def remove_stale_parts(output: str) -> list[str]:
     """Remove the temporary files a killed render of ``output`` (and of its sidecar) left beside it."""
     from audition.io import sidecar, tempfiles
 
-    return tempfiles.remove_leftover_parts(output) + tempfiles.remove_leftover_parts(sidecar.sidecar_path(output))
+    return tempfiles.remove_leftover_parts(output, sidecar.sidecar_path(output))
 
 
 # ---------------------------------------------------------------------------

@@ -73,6 +73,18 @@ def blocks(path, block_frames: int = BLOCK_FRAMES, *, ahead: bool = False):
         yield from (read_ahead(r, block_frames) if ahead else r.blocks(block_frames))
 
 
+def counted(blocks, total: int, progress=None):
+    """``blocks`` passed through, with ``progress(frames_done, total)`` after each one (when given)."""
+    if progress is None:
+        yield from blocks
+        return
+    done = 0
+    for b in blocks:
+        yield b
+        done += len(b)
+        progress(done, total)
+
+
 @dataclass(frozen=True)
 class AudioInfo:
     """What a sound file's header says."""

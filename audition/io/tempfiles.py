@@ -18,21 +18,57 @@ from audition.io.messages import _os_message
 _PART_SUFFIX = ".part"
 
 
-def remove_leftover_parts(target) -> list[str]:
-    """Remove the temporary files a killed writer of ``target`` left beside it; returns their names."""
-    import re
+#: A temporary file that no process holds locked is stale once it is this old (a living writer locks its
+#: file within microseconds of making it) ...
+LOCKED_AFTER_SECONDS = 0.1
+#: ... and, on a file system without locks, once nothing has written to it for this long.
+STALE_AFTER_SECONDS = 2.0
 
-    folder, name = os.path.split(os.path.abspath(os.fspath(target)))
-    pattern = re.compile(r"^\." + re.escape(name) + r"\.[A-Za-z0-9_]{8}" + re.escape(_PART_SUFFIX) + "$")
+
+def remove_leftover_parts(*targets) -> list[str]:
+    """Remove the temporary files that killed writers of ``targets`` left beside them; their names.
+
+    The files of this module's pattern (``.NAME.XXXXXXXX.part``) that no living process
+    holds locked: every :class:`_TempFile` holds a lock on its file while it is open (the
+    lock goes with its process, however it dies). One younger than
+    :data:`LOCKED_AFTER_SECONDS` may have just been made and not yet locked; on a file
+    system without locks, one written to in the last :data:`STALE_AFTER_SECONDS` is a
+    living writer's. So a writer running now to the same output keeps its own.
+    """
+    import fcntl
+    import re
+    import time
+
     removed = []
-    try:
-        entries = os.listdir(folder)
-    except OSError:
-        return removed
-    for entry in entries:
-        if pattern.match(entry):
+    for target in targets:
+        if not target:
+            continue
+        folder, name = os.path.split(os.path.abspath(os.fspath(target)))
+        pattern = re.compile(r"^\." + re.escape(name) + r"\.[A-Za-z0-9_]{8}" + re.escape(_PART_SUFFIX) + "$")
+        try:
+            entries = [e for e in os.listdir(folder) if pattern.match(e)]
+        except OSError:
+            continue
+        for entry in entries:
+            path = os.path.join(folder, entry)
             try:
-                os.unlink(os.path.join(folder, entry))
+                age = time.time() - os.lstat(path).st_mtime
+                fd = os.open(path, os.O_RDONLY | os.O_NOFOLLOW)
+            except OSError:
+                continue
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                stale = age >= LOCKED_AFTER_SECONDS
+            except BlockingIOError:
+                stale = False  # held: a living writer's
+            except OSError:
+                stale = age >= STALE_AFTER_SECONDS  # no locks here: only the age tells
+            finally:
+                os.close(fd)
+            if not stale:
+                continue
+            try:
+                os.unlink(path)
                 removed.append(entry)
             except FileNotFoundError:
                 pass
@@ -72,6 +108,7 @@ class _TempFile:
             umask = os.umask(0)
             os.umask(umask)
             os.fchmod(self.fd, 0o666 & ~umask)
+            _hold(self.fd)
         except BaseException:  # Ctrl-C included: no temporary file outlives its maker
             self.remove()
             raise
@@ -105,6 +142,16 @@ class _TempFile:
             os.unlink(self.name)
         except FileNotFoundError:
             pass
+
+
+def _hold(fd: int) -> None:
+    """Lock the temporary file while this process works on it (see :func:`remove_leftover_parts`)."""
+    import fcntl
+
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        pass  # a file system without locks: the age rule alone then tells a living writer's file
 
 
 _AT_FDCWD = -100
