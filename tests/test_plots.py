@@ -146,6 +146,23 @@ def test_response_picture_marks_the_half_power_point_and_reads_the_passband(kw):
     assert_no_overlaps(fig)
 
 
+@pytest.mark.parametrize("kw", [dict(f0=7000.0, order=4, alignment="bessel"),
+                                dict(f0=8500.0, order=3, alignment="chebyshev", ripple_db=0.5)])
+def test_report_response_picture_marks_the_half_power_point(kw):
+    from audition.plots.plan import response_figure
+
+    d = _spec(**kw)
+    fig = response_figure(d, 2000.0)
+    ax = fig.axes[0]
+    point = next(line for line in ax.lines if line.get_label().startswith("digital -3.01 dB point"))
+    f3 = float(point.get_xdata()[0])
+    # scipy.signal.sosfreqz (reference library): the digital sections at that frequency read -3.01 dB
+    sos = np.array([list(s["b"]) + list(s["a"]) for s in d.to_dict()["sections"]])
+    _, h = signal.sosfreqz(sos, worN=[f3], fs=RATE)
+    assert 20 * math.log10(abs(h[0])) == pytest.approx(-3.01, abs=0.02)
+    assert_no_overlaps(fig)
+
+
 def d_analog_zpk(d):
     """The analog prototype as (z, p, k), built from its sections' f0 and Q (circuit theory of each section)."""
     z, p, k = [], [], 1.0

@@ -100,8 +100,12 @@ def response_figure(design, treble_from_hz: float | None = None):
     ax.axhline(-3.01, color="0.7", lw=0.8)
     ax.annotate("-3.01 dB (half power)", (200.0, -3.01), xytext=(0, -11), textcoords="offset points", fontsize=8,
                 color="0.4", bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.85))
-    name = (f"order {design.order} {design.alignment}" if design.alignment
-            else f"order {design.order}" + (f", Q {design.q:.3f}" if design.q else ""))
+    f3 = design.minus3db_hz()
+    if f3:
+        ax.plot([f3], [-3.01], "o", color="C3", ms=5, zorder=5, label=f"digital -3.01 dB point: {f3:,.0f} Hz")
+    from audition.plan.choose import _design_label
+
+    name = _design_label(design)
     hp = f", rumble high-pass {design.highpass_hz:,.0f} Hz" if design.highpass_hz else ""
     ax.set_title(f"the filter rendered: low-pass f0 {design.f0_hz:,.0f} Hz, {name}{hp}, "
                  f"{design.rate_hz:,.0f} Hz", fontsize=10)
