@@ -385,7 +385,8 @@ def _filter_rows(design) -> str:
             ("half-power (−3.01 dB) point", number(fig.minus3db_hz, 0, " Hz")),
             ("resonant peak", f"{number(fig.peak_gain_db, 2, ' dB', signed=True)} at {number(fig.peak_hz, 0, ' Hz')}"
              if fig.peak_gain_db > 0.05 else "none (no lift above the passband)"),
-            ("step overshoot", number(fig.overshoot_pct, 1, " %"))]
+            ("step overshoot", f"{number(fig.prototype_overshoot_pct, 1, ' %')} (the analog prototype's ringing); "
+                               f"{number(fig.overshoot_pct, 1, ' %')} sample by sample at this rate")]
     for i, s in enumerate(design.sections):
         rows.append((f"section {i + 1}: {s.kind}",
                      number(s.f0_hz, 0, " Hz") + ("" if s.q is None else f", Q {number(s.q, 3)}")))

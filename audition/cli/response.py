@@ -48,6 +48,7 @@ def report(d) -> dict:
         "peak_gain_db": fig.peak_gain_db,
         "peak_hz": fig.peak_hz,
         "overshoot_pct": fig.overshoot_pct,
+        "prototype_overshoot_pct": fig.prototype_overshoot_pct,
         "group_delay_ms": {"1000": fig.group_delay_ms_1k, "f0": fig.group_delay_ms_f0},
         "methods": {},
     }
@@ -88,7 +89,9 @@ def format_table(r: dict) -> str:
         "",
         f"  {'-3.01 dB (half power)':<28}{hz(r['minus3db_hz'])}",
         f"  {'peak gain':<28}{db(r['peak_gain_db'])} at {hz(r['peak_hz'])}",
-        f"  {'step overshoot':<28}" + ("—" if r["overshoot_pct"] is None else f"{r['overshoot_pct']:.2f} %"),
+        f"  {'step overshoot':<28}" + ("—" if r["overshoot_pct"] is None else
+                                        f"{r['prototype_overshoot_pct']:.2f} % analog prototype, "
+                                        f"{r['overshoot_pct']:.2f} % sample by sample"),
         f"  {'group delay at 1 kHz':<28}{r['group_delay_ms']['1000']:.4f} ms",
         f"  {'group delay at f0':<28}{r['group_delay_ms']['f0']:.4f} ms",
         f"  digital minus analog magnitude, worst point in {lo:,.0f} Hz .. {hi:,.0f} Hz:",

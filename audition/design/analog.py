@@ -204,3 +204,38 @@ def alignment_sections(f0_hz: float, order: int, alignment: str, kind: str = "lo
     if None in half:
         qs.insert(0, 0.5)
     return [Section(kind, f0_hz, q) for q in sorted(qs)]
+
+
+#: The prototype's step response is taken on the cascade digitised with its highest f0 at 1/64 of the
+#: rate: 8,193 response points, 16,384 samples (256 periods of that f0).
+_STEP_F0_FRACTION = 1.0 / 64.0
+_STEP_SAMPLES = 16384
+
+
+def step_overshoot_pct(sections) -> float:
+    """Step-response overshoot of a low-pass cascade's analog prototype, percent of its final value.
+
+    ``sections``: ``(f0, Q)`` pairs (Q None for a first-order section), any frequency unit.
+    The ringing of the shape itself, the same at every sample rate: computed on the
+    cascade digitised by the bilinear transform with its highest f0 at rate/64, where
+    the warping is 0.08 %, as the running sum of the impulse response that the inverse
+    real FFT of its frequency response gives over 16,384 samples (256 periods of that
+    f0; the slowest section searched, an eighth-order Chebyshev's lowest, has died away
+    by orders of magnitude before the circular wrap). Within 0.1 percentage point of the
+    analog step response for every shape the planner searches (tests). A digital filter's own step response (``Design.overshoot_pct``) adds
+    the sampling's share near Nyquist.
+    """
+    secs = [(float(f), None if q is None else float(q)) for f, q in sections]
+    if not secs:
+        return 0.0
+    top = max(f for f, _ in secs)
+    w = np.linspace(0.0, np.pi, _STEP_SAMPLES // 2 + 1)[:-1]
+    x = np.tan(w / 2.0) / math.tan(np.pi * _STEP_F0_FRACTION)
+    h = np.ones(len(x), dtype=complex)
+    for f, q in secs:
+        v = x * (top / f)
+        h = h / (1.0 + 1j * v) if q is None else h / (1.0 - v * v + 1j * v / q)
+    h = np.append(h, 0.0)  # every low-pass here is zero at Nyquist (x infinite)
+    step = np.cumsum(np.fft.irfft(h, _STEP_SAMPLES))
+    final = float(np.real(h[0]))
+    return max(0.0, (float(step.max()) - final) / final * 100.0)

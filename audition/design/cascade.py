@@ -33,6 +33,7 @@ class Figures:
     overshoot_pct: float | None
     group_delay_ms_1k: float
     group_delay_ms_f0: float
+    prototype_overshoot_pct: float | None = None
 
 
 @dataclass(frozen=True)
@@ -213,6 +214,16 @@ class Design:
         final = float(np.prod([r[:3].sum() / r[3:].sum() for r in sos]))
         return max(0.0, float((step.max() - final) / final * 100.0))
 
+    def prototype_overshoot_pct(self) -> float | None:
+        """Step-response overshoot of the low-pass part's analog prototype, percent (its ringing at any rate).
+
+        ``None`` when there is no low-pass part. See :func:`audition.design.analog.step_overshoot_pct`.
+        """
+        from audition.design.analog import step_overshoot_pct
+
+        lows = [(s.f0_hz, s.q) for s in self.sections if s.kind == "lowpass"]
+        return step_overshoot_pct(lows) if lows else None
+
     def figures(self) -> Figures:
         dev_db, dev_hz = self.max_deviation()
         peak_db, peak_hz = self.peak()
@@ -227,6 +238,7 @@ class Design:
             overshoot_pct=self.overshoot_pct(),
             group_delay_ms_1k=float(self.group_delay_s(1000.0)) * 1e3 if 1000.0 < self.rate_hz / 2 else float("nan"),
             group_delay_ms_f0=float(self.group_delay_s(f0)) * 1e3,
+            prototype_overshoot_pct=self.prototype_overshoot_pct(),
         )
 
     # -- serialisation ----------------------------------------------------

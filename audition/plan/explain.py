@@ -36,7 +36,10 @@ def describe_q(design) -> str:
     else:
         shape = "stays flat up to the cutoff"
     where = f"is 3 dB down at {khz(fig.minus3db_hz)}" if fig.minus3db_hz else "never falls 3 dB"
-    return f"{shape}, {where}, and a step overshoots by {fig.overshoot_pct or 0.0:.1f} %"
+    ring = fig.prototype_overshoot_pct or 0.0
+    sampled = fig.overshoot_pct or 0.0
+    also = f" ({sampled:.1f} % sample by sample at this rate)" if abs(sampled - ring) >= 0.5 else ""
+    return f"{shape}, {where}, and a step overshoots by {ring:.1f} %{also}"
 
 
 def _heard_where(nothing) -> str:

@@ -117,29 +117,15 @@ class Shape:
         return float(10.0 * np.log10(self.analog_power(x).max()))
 
 
-#: Step-response samples per period of f0 in :func:`overshoot_pct` (f0 at 1/64 of the rate), and their count.
-_STEP_F0_FRACTION = 1.0 / 64.0
-_STEP_SAMPLES = 16384
-
-
 def overshoot_pct(shape_list) -> np.ndarray:
-    """Step-response overshoot of every shape, percent of its final value: array (shapes,).
+    """Step-response overshoot of every shape's analog prototype, percent: array (shapes,).
 
-    A property of the shape alone (time scales with 1/f0). Computed on the shape digitised
-    at f0 = rate/64 (module notes): its frequency response sampled on 8,193 points, the
-    impulse response by the inverse real FFT over 16,384 samples (256 periods of f0, long
-    enough for the slowest section searched, Q 2, to die away below 1e-300, so the circular
-    wrap adds nothing), and the step response its running sum.
+    A property of the shape alone (time scales with 1/f0), the same at every rate
+    (:func:`audition.design.analog.step_overshoot_pct`).
     """
-    w = np.linspace(0.0, np.pi, _STEP_SAMPLES // 2 + 1)
-    x = np.tan(w[:-1] / 2.0) / math.tan(np.pi * _STEP_F0_FRACTION)
-    out = np.empty(len(shape_list))
-    for i, s in enumerate(shape_list):
-        h = np.append(s.analog_response(x), 0.0)  # every shape is zero at Nyquist (x infinite)
-        step = np.cumsum(np.fft.irfft(h, _STEP_SAMPLES))
-        final = float(np.real(h[0]))
-        out[i] = max(0.0, (float(step.max()) - final) / final * 100.0)
-    return out
+    from audition.design.analog import step_overshoot_pct
+
+    return np.array([step_overshoot_pct(s.sections) for s in shape_list])
 
 
 def shapes(orders=ALL_ORDERS) -> list[Shape]:
