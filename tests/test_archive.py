@@ -127,17 +127,24 @@ def check_fixity(out, side: dict):
     assert side["output"]["size_bytes"] == len(raw)
 
 
-# EBU R 98: a coding-history line is comma-separated fields A= (coding algorithm), F= (sampling
-# frequency, Hz), B= (bit rate, compressed codings), W= (word length, bits), M= (mode), T= (free text),
-# ended by CR/LF. The modes listed (recalled from memory): mono, stereo, dual-mono, joint-stereo;
-# "multichannel" is this project's word for more than two channels.
-R98_LINE = re.compile(r"^A=PCM,F=(\d+),W=(\d+),M=(mono|stereo|dual-mono|joint-stereo|multichannel),T=([^,\r\n]*)\r\n$")
+# EBU R 98 (format for the CodingHistory field of BWF files): a coding-history line is comma-separated
+# fields A= (coding algorithm), F= (sampling frequency, Hz), B= (bit rate, compressed codings only),
+# W= (word length, bits), M= (mode), T= (free text, no commas), ended by CR/LF. The EBU's own text was
+# not found with the search tool; its field table was, as reproduced in libsndfile's src/broadcast.c
+# (quoting a Swedish Radio copy of R 98, "codhist2.htm"): "Mode M=<mono, stereo, dual-mono,
+# joint-stereo>". No mode there names more than two channels, so for more the line has no M field
+# (left out as B is for PCM) and T begins with the channel count.
+R98_MODES = ("mono", "stereo", "dual-mono", "joint-stereo")
+R98_LINE = re.compile(r"^A=PCM,F=(\d+),W=(\d+),(?:M=([^,\r\n]*),)?T=([^,\r\n]*)\r\n$")
 
 
-def check_r98(line: str, rate: int, bits: int, mode: str):
+def check_r98(line: str, rate: int, bits: int, mode: str | None, channels: int = 2):
     m = R98_LINE.match(line)
     assert m, f"not an EBU R 98 line: {line!r}"
     assert (int(m.group(1)), int(m.group(2)), m.group(3)) == (rate, bits, mode)
+    assert m.group(3) is None or m.group(3) in R98_MODES
+    if m.group(3) is None:
+        assert m.group(4).startswith(f"{channels} channels;")
     assert "low-pass" in m.group(4) and "9000" in m.group(4)
 
 
@@ -193,8 +200,8 @@ def _check_bwf(src, out, side, *, channels=6, valid=20):
     assert new[:412] == old[:412]  # Description ... TimeReference, Version, UMID: byte for byte
     assert new[602:602 + len(old) - 602].rstrip(b"\0") == old[602:].rstrip(b"\0")  # history kept word for word
     added = new[602:].rstrip(b"\0")[len(old[602:].rstrip(b"\0")):].decode("ascii")
-    mode = {1: "mono", 2: "stereo"}.get(channels, "multichannel")
-    check_r98(added, 48000, valid, mode)
+    mode = {1: "mono", 2: "stereo"}.get(channels)  # R 98 has no mode for more (see R98_LINE)
+    check_r98(added, 48000, valid, mode, channels)
     w = WavInfoReader(str(out))
     assert w.bext.time_reference == 123456789 + (1 << 32)
     assert w.bext.originator_ref == "REF-0012" and w.bext.description == "Reel 12 side A"
@@ -261,6 +268,20 @@ def test_float_wav_keeps_chunks_and_measures_peak_again(tmp_path):
     assert got[4] == np.abs(y[:, 1]).max() and got[5] == np.abs(y[:, 1]).argmax()
     ids = [c for c, _ in wave_chunks(out)]
     assert ids[-2:] == [b"zzzz", b"data"]
+
+
+def test_a_large_chunk_is_carried_byte_for_byte(tmp_path):
+    """A carried chunk past audition's in-memory limit (copied by byte range) still comes out identical, with its
+    pad byte (Microsoft/IBM RIFF: odd sizes padded)."""
+    from audition.io.archive.wave import INLINE_MAX
+
+    big = np.random.default_rng(8).integers(0, 256, INLINE_MAX + 3, dtype=np.uint8).tobytes()
+    src, out = tmp_path / "in.wav", tmp_path / "out.wav"
+    build_wave(src, extra=[chunk(b"zbig", big)] + archive_chunks(4800)[1:3])
+    render(src, out)
+    a, b = wave_chunks(src), wave_chunks(out)
+    assert [c for c, _ in a] == [c for c, _ in b]
+    assert dict(b)[b"zbig"] == big + b"\0"
 
 
 def test_a_dropped_chunk_gets_a_line_on_stderr(tmp_path, capsys):
@@ -381,13 +402,47 @@ def test_aiff_markers_comments_and_instrument_kept(tmp_path):
     check_fixity(out, side)
 
 
+#: A vendor string with what a repr would change (quotes, a backslash, non-ASCII), to check it is kept verbatim.
+VENDOR = 'their encoder 1.0 "Z\u00fcrich" \\ build\'s'
+
+
+def flac_audio_start(raw: bytes) -> int:
+    """Where a FLAC file's first frame starts: "fLaC", then metadata blocks of a 4-byte header (last-block
+    flag, 7-bit type, 24-bit length) and their data (FLAC format specification, "METADATA_BLOCK_HEADER")."""
+    assert raw[:4] == b"fLaC"
+    i = 4
+    while True:
+        last, n = raw[i] & 0x80, int.from_bytes(raw[i + 1:i + 4], "big")
+        i += 4 + n
+        if last:
+            return i
+
+
+def test_aiff_large_chunk_carried_byte_for_byte(tmp_path):
+    """An AIFF chunk past audition's in-memory limit (copied by byte range), odd-sized: identical, pad byte
+    included (Apple AIFF 1.3: chunks padded to an even length)."""
+    from audition.io.archive.wave import INLINE_MAX
+
+    frames = 4800
+    x = samples(frames, 2, 16, 16, 5).astype(">i2")
+    big = b"abcd" + np.random.default_rng(9).integers(0, 256, INLINE_MAX + 1, dtype=np.uint8).tobytes()
+    body = (b"AIFF" + _bchunk(b"COMM", struct.pack(">hIh", 2, frames, 16) + _ext80(48000))
+            + _bchunk(b"zbig", big) + _bchunk(b"SSND", bytes(8) + x.tobytes()))
+    src, out = tmp_path / "in.aiff", tmp_path / "out.aiff"
+    src.write_bytes(b"FORM" + struct.pack(">I", len(body)) + body)
+    render(src, out)
+    a, b = aiff_chunks(src), aiff_chunks(out)
+    assert [c for c, _ in a] == [c for c, _ in b]
+    assert dict(b)[b"zbig"] == big + b"\0"
+
+
 def _flac_input(path):
     import soundfile as sf
     from mutagen.flac import FLAC, MetadataBlock, Picture, SeekPoint, SeekTable
 
     sf.write(path, np.random.default_rng(4).standard_normal((48000 * 3, 2)) * 0.1, 48000, subtype="PCM_24")
     f = FLAC(path)
-    f.tags.vendor = "their encoder 1.0"
+    f.tags.vendor = VENDOR
     for kv in [("Title", "Reel 3"), ("ARTIST", "A"), ("ARTIST", "B"), ("myCustomKey", "x, y"),
                ("COMMENT", "transfer 1, no processing")]:
         f.tags.append(kv)
@@ -419,6 +474,11 @@ def test_flac_comments_picture_application_kept_and_seektable_rebuilt(tmp_path):
     key, value = list(b.tags)[-1]
     assert key == "PROCESSING"
     check_r98(value + "\r\n", 48000, 24, "stereo")
+    # the vendor string: the output's names the encoder of its frames (libsndfile's libFLAC, as mutagen reads
+    # the file libsndfile wrote); the input's is in the sidecar's VORBIS_COMMENT entry, verbatim
+    assert b.tags.vendor == FLAC(render_plain(tmp_path, src)).tags.vendor != VENDOR
+    entry = next(m for m in side["metadata"] if m["chunk"] == "VORBIS_COMMENT")
+    assert entry["input_vendor"] == VENDOR and VENDOR == a.tags.vendor
     assert [p.data for p in b.pictures] == [p.data for p in a.pictures]
     app = [blk for blk in b.metadata_blocks if blk.code == 2]
     assert len(app) == 1 and app[0].data == b"abcdprivate data"
@@ -426,15 +486,169 @@ def test_flac_comments_picture_application_kept_and_seektable_rebuilt(tmp_path):
     pts = b.seektable.seekpoints
     assert len(pts) >= 1 and pts[0].first_sample == 0 and pts[0].byte_offset == 0
     raw = open(out, "rb").read()
-    from audition.io.archive.flac import _audio_start
-
-    start = _audio_start(raw)
+    start = flac_audio_start(raw)
     for p in pts:
         assert raw[start + p.byte_offset] == 0xFF and raw[start + p.byte_offset + 1] & 0xFE == 0xF8
         assert p.first_sample % 4096 == 0
     x = sf.read(out)[0]
     assert len(x) == 48000 * 3
     check_fixity(out, side)
+
+
+def render_plain(tmp_path, src):
+    """``src``'s audio written by soundfile (libsndfile) alone, as FLAC: what its encoder calls itself."""
+    import soundfile as sf
+
+    ref = tmp_path / "plain-ref.flac"
+    sf.write(ref, sf.read(src, frames=4096)[0], 48000, subtype="PCM_24")
+    return ref
+
+
+def _streaminfo_for(raw: bytes, start: int, frames: int) -> bytes:
+    """A FLAC header for a cut of ``raw``'s frames: its STREAMINFO with ``frames`` samples in all and no MD5.
+
+    STREAMINFO (FLAC format specification): min/max block size (16 bits each), min/max frame size
+    (24 bits each), then 64 bits of rate (20), channels - 1 (3), bits - 1 (5) and total samples (36),
+    then the 128-bit MD5 of the samples (0: not known).
+    """
+    info = bytearray(raw[8:8 + 34])
+    v = int.from_bytes(info[10:18], "big")
+    info[10:18] = ((v >> 36 << 36) | frames).to_bytes(8, "big")
+    info[18:34] = bytes(16)
+    return b"fLaC" + bytes([0x80, 0, 0, 34]) + bytes(info)
+
+
+def test_seek_points_land_on_frames_libsndfile_decodes(tmp_path):
+    """The rebuilt seek table of a 3-minute FLAC written by soundfile: each point is a real frame start.
+
+    Checked from outside: the frames from each point's byte offset on, behind a STREAMINFO of their own,
+    decode with libsndfile (soundfile) to the samples libsndfile reads at the point's sample number in the
+    whole file; a point in the middle of a frame would decode from the next frame, samples later. Where the
+    points are follows the FLAC format specification: in a fixed-blocksize stream frame n starts at sample
+    n * blocksize (the blocksize as mutagen reads it from STREAMINFO), and a seek point is the first frame
+    at or after each wanted sample. White noise at a high level, so the frames are full of 0xFF bytes.
+    """
+    import io
+
+    import soundfile as sf
+    from mutagen.flac import FLAC
+
+    from audition.io.archive.flac import seek_points
+
+    path, rate, seconds = tmp_path / "long.flac", 44100, 180
+    rng = np.random.default_rng(15)
+    with sf.SoundFile(path, "w", rate, 2, subtype="PCM_16", format="FLAC") as f:
+        for _ in range(seconds // 10):
+            f.write(rng.integers(-30000, 30000, size=(rate * 10, 2), dtype=np.int16))
+    assert path.stat().st_size > 30e6
+    info = FLAC(path).info
+    block = FLAC(path).metadata_blocks[0].max_blocksize
+    total = info.total_samples
+    assert total == rate * seconds
+    spacing = rate + 7  # not a multiple of the blocksize: most points start after the sample wanted
+    pts = seek_points(path, spacing)
+    want, expected = 0, []
+    while want < total:
+        first = -(-want // block) * block
+        expected.append(first)
+        want = (first // spacing + 1) * spacing
+    assert [p[0] for p in pts] == expected
+    raw = open(path, "rb").read(1 << 16)
+    start = flac_audio_start(raw)
+    with open(path, "rb") as fh:
+        for first, offset, n in pts:
+            assert n == min(block, total - first)
+            k = min(2 * block, total - first)
+            fh.seek(start + offset)
+            cut = _streaminfo_for(raw, start, k) + fh.read(3 * 4 * block + 1024)
+            with sf.SoundFile(io.BytesIO(cut)) as g:  # read on from where it opens: no seek to sample 0
+                got = g.read(k, dtype="int16")
+            ref = sf.read(path, dtype="int16", start=first, frames=k)[0]
+            assert got.shape == ref.shape and np.array_equal(got, ref), first
+
+
+# ---------------------------------------------------------------------------
+# cue points when the sample width changes
+# ---------------------------------------------------------------------------
+
+
+def _cue(points) -> bytes:
+    """A ``cue `` payload (Microsoft/IBM RIFF 1991, "cue-ck"): dwCuePoints, then per point dwName, dwPosition,
+    fccChunk, dwChunkStart, dwBlockStart, dwSampleOffset."""
+    return struct.pack("<I", len(points)) + b"".join(struct.pack("<II4sIII", *p) for p in points)
+
+
+def test_cue_byte_offsets_scaled_to_the_new_block_align(tmp_path):
+    """24-bit stereo in, 16-bit out: dwBlockStart in bytes follows the block align (WAVEFORMATEX nBlockAlign =
+    nChannels * wBitsPerSample / 8: 6 in, 4 out); positions in samples stay as they were."""
+    src = tmp_path / "in.wav"
+    points = [(1, 1000, b"data", 0, 1000 * 6, 0),   # a writer that counts the block in bytes
+              (2, 2000, b"data", 0, 0, 2000),       # one that counts samples only
+              (3, 3000, b"data", 0, 2998 * 6, 2)]   # a block start and a sample offset within it
+    build_wave(src, bits=24, extra=[chunk(b"cue ", _cue(points))])
+    side = render(src, tmp_path / "out.wav", "--subtype", "PCM_16")
+    out = dict(wave_chunks(tmp_path / "out.wav"))
+    align = struct.unpack_from("<H", out[b"fmt "], 12)[0]
+    assert align == 2 * 16 // 8
+    got = [struct.unpack_from("<II4sIII", out[b"cue "], 4 + 24 * k) for k in range(3)]
+    assert got == [(1, 1000, b"data", 0, 1000 * 4, 0), (2, 2000, b"data", 0, 0, 2000),
+                   (3, 3000, b"data", 0, 2998 * 4, 2)]
+    entry = next(m for m in side["metadata"] if m["chunk"] == "cue ")
+    assert entry["fate"] == "rewritten" and "scaled from block align 6 to 4" in entry["reason"]
+    # the same width out: carried byte for byte, no reason
+    side = render(src, tmp_path / "same.wav")
+    assert dict(wave_chunks(tmp_path / "same.wav"))[b"cue "] == dict(wave_chunks(src))[b"cue "]
+    assert next(m for m in side["metadata"] if m["chunk"] == "cue ")["fate"] == "carried"
+
+
+def test_cue_offsets_that_cannot_be_scaled_are_named_in_the_inventory(tmp_path):
+    """A dwChunkStart inside a 'wavl' list the output does not have, and a dwBlockStart that is no whole number
+    of blocks, are left as they were, with a reason; zero offsets need nothing (Microsoft/IBM RIFF 1991)."""
+    src = tmp_path / "in.wav"
+    points = [(1, 500, b"data", 0, 0, 500), (2, 700, b"data", 4096, 0, 700), (3, 900, b"data", 0, 5401, 0)]
+    build_wave(src, bits=24, extra=[chunk(b"cue ", _cue(points))])
+    side = render(src, tmp_path / "out.wav", "--subtype", "PCM_16")
+    assert dict(wave_chunks(tmp_path / "out.wav"))[b"cue "] == _cue(points)
+    entry = next(m for m in side["metadata"] if m["chunk"] == "cue ")
+    assert entry["fate"] == "carried" and "of 2 cue points left as they were" in entry["reason"]
+    # only zero byte offsets: nothing to say, whatever the width
+    build_wave(src, bits=24, extra=[chunk(b"cue ", _cue(points[:1]))])
+    side = render(src, tmp_path / "zero.wav", "--subtype", "PCM_16")
+    assert dict(wave_chunks(tmp_path / "zero.wav"))[b"cue "] == _cue(points[:1])
+    assert next(m for m in side["metadata"] if m["chunk"] == "cue ") == {
+        "chunk": "cue ", "fate": "carried", "reason": "", "size_bytes": len(_cue(points[:1]))}
+
+
+# ---------------------------------------------------------------------------
+# batch: the same for every clip
+# ---------------------------------------------------------------------------
+
+
+def test_resume_renders_again_when_the_container_or_strictness_changes(tmp_path):
+    """--container and --strict-metadata are settings: a changed one is not "done by an earlier run"."""
+    import csv
+
+    srcdir, outdir = tmp_path / "in", tmp_path / "out"
+    srcdir.mkdir()
+    build_wave(srcdir / "a.wav", extra=archive_chunks(4800)[1:3])
+    args = ["batch", str(srcdir), str(outdir), "--f0", "9000", "--q", "0.7071", "--no-figures", "--quiet",
+            "--workers", "1"]
+
+    def status(*extra):
+        assert main([*args, "--resume", *extra]) == 0
+        with open(outdir / "batch-report.csv", newline="", encoding="utf-8") as fh:
+            return [row["status"] for row in csv.DictReader(fh)]
+
+    assert main(args) == 0
+    assert open(outdir / "a.wav", "rb").read(4) == b"RIFF"
+    assert status() == ["skipped"]
+    assert status("--container", "rf64") == ["done"]
+    assert open(outdir / "a.wav", "rb").read(4) == b"RF64"  # EBU Tech 3306 header
+    assert status("--container", "rf64") == ["skipped"]
+    assert status("--container", "rf64", "--strict-metadata") == ["done"]
+    assert status("--container", "rf64", "--strict-metadata") == ["skipped"]
+    assert status() == ["done"]
+    assert open(outdir / "a.wav", "rb").read(4) == b"RIFF"
 
 
 # ---------------------------------------------------------------------------

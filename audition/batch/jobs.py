@@ -106,6 +106,11 @@ class Job:
                                   dither=self.dither, seed=self.seed)
         return json.loads(json.dumps(s))
 
+    def archive_settings(self) -> dict:
+        """The archive options (``--container``, ``--strict-metadata``), recorded in the sidecar beside
+        ``settings``: a change in either renders the clip again on ``resume``."""
+        return {"container": self.container, "strict_metadata": self.strict_metadata}
+
 
 # ---------------------------------------------------------------------------
 # A worker process's state (set by _init_worker, read by run_job)
@@ -293,6 +298,8 @@ def finished_record(job: Job, rec: dict | None = None) -> dict | None:
     rec = _read_sidecar(job) if rec is None else rec
     if rec is None or rec.get("settings") != job.settings():
         return None
+    if rec.get("archive_settings") != job.archive_settings():
+        return None  # another --container or --strict-metadata (or a sidecar from before they were recorded)
     if job.noise is not None and not (rec.get("measured") or rec.get("figures_missing")):
         return None  # an output of a run older than the commit of output, sidecar and figures as one unit
     try:
@@ -339,13 +346,17 @@ def remove_stale_parts(output: str) -> list[str]:
 
 def _provenance(job: Job) -> dict | None:
     p = {"batch_run": job.run} if job.run else {}
+    p["archive_settings"] = job.archive_settings()
     if job.command_line:
         p["command_line"] = list(job.command_line)
     return p or None
 
 
-def run_job(job: Job) -> dict:
-    """Render one job; the row of the report. Never raises: a failure is a row with a one-line reason."""
+def run_job(job: Job, progress=None) -> dict:
+    """Render one job; the row of the report. Never raises: a failure is a row with a one-line reason.
+
+    ``progress`` is handed to :func:`audition.pipeline.render_job` (its phases, then frames done).
+    """
     global _RUNNING
     t0 = time.perf_counter()
     row = empty_row(job)
@@ -384,7 +395,7 @@ def run_job(job: Job) -> dict:
                                 subtype=job.subtype, dither=job.dither, seed=job.seed, overwrite=overwrite,
                                 provenance=_provenance(job), threads=job.threads, container=job.container,
                                 strict_metadata=job.strict_metadata, accept_truncated=job.accept_truncated,
-                                figures_optional=True)
+                                figures_optional=True, progress=progress)
         row_from_render(row, r)
         if r.get("output") is None:
             # --auto answered "no filter": neither rendered nor failed, nothing written

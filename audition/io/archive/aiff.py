@@ -17,6 +17,7 @@ from dataclasses import dataclass
 
 from audition.io.archive.inventory import Fate
 from audition.io.archive.riff import _copy_range
+from audition.io.archive.wave import INLINE_MAX
 
 
 @dataclass(frozen=True)
@@ -93,7 +94,7 @@ def rebuild(in_path, tmp_fd: int, tmp_path: str, new_fd: int) -> tuple[list[Fate
     i_comm_p = _payload(in_path, i_comm) if i_comm is not None else b""
     same = i_comm is not None and _coding(form_in, i_comm_p) == _coding(form_out, o_comm_p)
     form = form_in if same else form_out
-    fates, parts = [], []  # parts: bytes, or (fd, offset, length) of the audio
+    fates, parts = [], []  # parts: bytes, or (fd, offset, length) of the audio and of large chunks
     with open(in_path, "rb") as f:
         for c in cin:
             if c.cid == b"SSND":
@@ -111,25 +112,29 @@ def rebuild(in_path, tmp_fd: int, tmp_path: str, new_fd: int) -> tuple[list[Fate
             elif c.cid == b"FVER" and form != form_in:
                 fates.append(Fate(c.name, "dropped", "AIFF-C version chunk of an AIFF-C input written as AIFF "
                                   "(the coding changed)", c.size))
+            elif c.stored == c.size and c.size > INLINE_MAX:  # copied by byte range, never read whole
+                f.seek(c.offset)
+                parts += [f.read(8), (f.fileno(), c.offset + 8, c.size)] + ([b"\x00"] if c.size & 1 else [])
+                fates.append(Fate(c.name, "carried", "", c.size))
             else:
                 f.seek(c.offset)
                 b = f.read(8 + c.stored + (c.size & 1))
                 parts.append(b + b"\x00" * (8 + c.size + (c.size & 1) - len(b)))
                 fates.append(Fate(c.name, "carried", "", c.size))
-    if form == b"AIFC" and form_in != b"AIFC":
-        fver = next(c for c in cout if c.cid == b"FVER")
-        parts.insert(0, b"FVER" + struct.pack(">I", fver.size) + _payload(tmp_path, fver))
-        fates.append(Fate("FVER", "added", "the output is AIFF-C (the coding changed)", fver.size))
-    total = 4 + sum(len(p) if isinstance(p, bytes) else p[2] for p in parts)
-    pos = 0
-    for b in [b"FORM" + struct.pack(">I", total) + form] + parts:
-        if isinstance(b, bytes):
-            os.pwrite(new_fd, b, pos)
-            pos += len(b)
-        else:
-            _copy_range(b[0], b[1], new_fd, pos, b[2])
-            pos += b[2]
-    os.ftruncate(new_fd, pos)
+        if form == b"AIFC" and form_in != b"AIFC":
+            fver = next(c for c in cout if c.cid == b"FVER")
+            parts.insert(0, b"FVER" + struct.pack(">I", fver.size) + _payload(tmp_path, fver))
+            fates.append(Fate("FVER", "added", "the output is AIFF-C (the coding changed)", fver.size))
+        total = 4 + sum(len(p) if isinstance(p, bytes) else p[2] for p in parts)
+        pos = 0
+        for b in [b"FORM" + struct.pack(">I", total) + form] + parts:
+            if isinstance(b, bytes):
+                os.pwrite(new_fd, b, pos)
+                pos += len(b)
+            else:
+                _copy_range(b[0], b[1], new_fd, pos, b[2])
+                pos += b[2]
+        os.ftruncate(new_fd, pos)
     ch, frames, bits, rate, comp = _coding(form, i_comm_p if same else o_comm_p)
     return fates, {"form": form.decode(), "channels": ch, "frames": frames, "bits_per_sample": bits,
                    "rate_hz": rate, "compression": comp.decode("latin-1")}, True

@@ -70,14 +70,18 @@ def coding_line(*, rate_hz: float, bits: int, channels: int, float_samples: bool
     fields A (coding algorithm), F (sampling frequency, Hz), B (bit rate, for
     compressed codings only), W (word length, bits), M (mode) and T (free text),
     separated by commas, one line per step. Commas in ``text`` would start a new
-    field, so they become semicolons.
+    field, so they become semicolons. R 98's modes are mono, stereo, dual-mono and
+    joint-stereo: none names more than two channels, so for those M is left out (as
+    B is for PCM) and T begins with the channel count (``6 channels;...``).
     """
-    mode = {1: "mono", 2: "stereo"}.get(channels, "multichannel")
+    mode = {1: "mono", 2: "stereo"}.get(channels)
     t = text.replace(",", ";").replace("\r", " ").replace("\n", " ")
     if float_samples:
         t = "IEEE float samples;" + t
+    if mode is None:
+        t = f"{channels} channels;" + t
     rate = f"{rate_hz:.0f}" if float(rate_hz).is_integer() else f"{rate_hz:g}"
-    return f"A=PCM,F={rate},W={bits},M={mode},T={t}\r\n"
+    return f"A=PCM,F={rate},W={bits},{f'M={mode},' if mode else ''}T={t}\r\n"
 
 
 def _db100(value) -> int:

@@ -21,15 +21,21 @@ class Fate:
     reason : str
         Why, for rewritten, added and dropped ones.
     size_bytes : int
+    extra : tuple of (str, str)
+        More keys for its record, values verbatim (e.g. ``("input_vendor", ...)``: the vendor
+        string of the input's VORBIS_COMMENT block, which the output's replaces).
     """
 
     chunk: str
     fate: str
     reason: str = ""
     size_bytes: int = 0
+    extra: tuple = ()
 
     def to_dict(self) -> dict:
-        return {"chunk": self.chunk, "fate": self.fate, "reason": self.reason, "size_bytes": int(self.size_bytes)}
+        d = {"chunk": self.chunk, "fate": self.fate, "reason": self.reason, "size_bytes": int(self.size_bytes)}
+        d.update(self.extra)
+        return d
 
 
 def dropped(fates) -> list[Fate]:

@@ -16,7 +16,8 @@ The rule, chunk by chunk, in the input's order:
 - everything else (``LIST INFO``, ``LIST adtl``, ``cue ``, ``smpl``, ``iXML``, ``axml``,
   ``JUNK``, unknown chunks): carried byte for byte, with its pad byte. Sample
   positions in ``cue ``/``smpl``/``LIST adtl`` stay right: the frames are aligned
-  one to one.
+  one to one. The byte offsets of ``cue `` points (dwBlockStart) are scaled when the
+  block align changes (:func:`cue_payload`).
 """
 
 from __future__ import annotations
@@ -34,6 +35,8 @@ STALE = {b"PEAK": "peak values and positions of the input's samples, stale after
          b"levl": "peak envelope of the input's samples (EBU Tech 3285 s. 3), stale after filtering",
          b"md5 ": "checksum of the input's audio, stale after filtering"}
 _EXTENSIBLE = 0xFFFE
+#: Carried chunks larger than this are copied from the input by byte range, never read whole.
+INLINE_MAX = 1 << 20
 _GUID_TAIL = bytes.fromhex("000000001000800000aa00389b71")
 
 
@@ -125,11 +128,15 @@ def rebuild(in_path, tmp_fd: int, tmp_path: str, new_fd: int, *, frames: int, co
     fates: list[Fate] = []
     pieces: list[Piece] = []
     fmt_final = ofmt_payload
+    ifmt = src.first(b"fmt ")
+    in_align = parse_fmt(read_payload(in_path, ifmt))["block_align"] if ifmt is not None else 0
     with open(in_path, "rb") as f:
-        def raw(c):
+        def carried(c) -> Piece:
+            if c.stored == c.size and c.size > INLINE_MAX:
+                return Piece(c.cid, source=(f.fileno(), c.data_offset, c.size))  # copied by range, not read whole
             f.seek(c.offset)
             b = f.read(8 + c.stored + (c.size & 1))
-            return b + b"\x00" * (8 + c.size + (c.size & 1) - len(b))
+            return Piece(c.cid, b + b"\x00" * (8 + c.size + (c.size & 1) - len(b)), raw=True)
 
         for c in src.chunks:
             if c.cid == b"data":
@@ -144,6 +151,10 @@ def rebuild(in_path, tmp_fd: int, tmp_path: str, new_fd: int, *, frames: int, co
             elif c.cid == b"fact":
                 pieces.append(Piece(b"fact", struct.pack("<I", min(frames, 2**32 - 1))))
                 fates.append(Fate(c.name, "rewritten", "the output's sample count", c.size))
+            elif c.cid == b"cue " and (cue := cue_payload(read_payload(in_path, c), in_align,
+                                                           parse_fmt(ofmt_payload)["block_align"]))[1]:
+                pieces.append(Piece(b"cue ", cue[0]))
+                fates.append(Fate(c.name, cue[1], cue[2], c.size))
             elif c.cid == b"bext":
                 payload, changes = _bext.rewrite(read_payload(in_path, c), coding_line, true_peak_dbtp=true_peak_dbtp)
                 pieces.append(Piece(b"bext", payload))
@@ -155,25 +166,72 @@ def rebuild(in_path, tmp_fd: int, tmp_path: str, new_fd: int, *, frames: int, co
             elif c.cid in STALE:
                 fates.append(Fate(c.name, "dropped", STALE[c.cid], c.size))
             else:
-                pieces.append(Piece(c.cid, raw(c), raw=True))
+                pieces.append(carried(c))
                 fates.append(Fate(c.name, "carried", "", c.size))
-    if ofact is not None and not any(p.cid == b"fact" for p in pieces) and parse_fmt(fmt_final)["coding"] != 1:
-        # a non-PCM coding needs its fact chunk (Microsoft RIFF: WAVE_FORMAT other than PCM)
-        at = next(i for i, p in enumerate(pieces) if p.cid == b"fmt ") + 1
-        pieces.insert(at, Piece(b"fact", struct.pack("<I", min(frames, 2**32 - 1))))
-        fates.append(Fate("fact", "added", "the sample count a non-PCM coding needs", 4))
-    kind = src.kind
-    if kind == b"RIFF" and (force_64 or 4 + sum(p.stored for p in pieces) > RIFF_MAX):
-        kind = b"RF64"
-        fates.append(Fate("RIFF", "rewritten", "the output passes 4 GiB: written as RF64 (EBU Tech 3306) with a "
-                          "ds64 chunk", 0))
-    if kind != b"RIFF":
-        pieces.insert(0, Piece(b"ds64", b"\x00" * 28))
-    fmt_rec = fmt_record(fmt_final)
-    if _same_as(out, tmp_path, kind, pieces):
-        return fates, fmt_rec, False
-    write_file(new_fd, kind, pieces, frames)
-    return fates, fmt_rec, True
+        if ofact is not None and not any(p.cid == b"fact" for p in pieces) and parse_fmt(fmt_final)["coding"] != 1:
+            # a non-PCM coding needs its fact chunk (Microsoft RIFF: WAVE_FORMAT other than PCM)
+            at = next(i for i, p in enumerate(pieces) if p.cid == b"fmt ") + 1
+            pieces.insert(at, Piece(b"fact", struct.pack("<I", min(frames, 2**32 - 1))))
+            fates.append(Fate("fact", "added", "the sample count a non-PCM coding needs", 4))
+        kind = src.kind
+        if kind == b"RIFF" and (force_64 or 4 + sum(p.stored for p in pieces) > RIFF_MAX):
+            kind = b"RF64"
+            fates.append(Fate("RIFF", "rewritten", "the output passes 4 GiB: written as RF64 (EBU Tech 3306) with a "
+                              "ds64 chunk", 0))
+        if kind != b"RIFF":
+            pieces.insert(0, Piece(b"ds64", b"\x00" * 28))
+        fmt_rec = fmt_record(fmt_final)
+        if _same_as(out, tmp_path, kind, pieces):
+            return fates, fmt_rec, False
+        write_file(new_fd, kind, pieces, frames)
+        return fates, fmt_rec, True
+
+
+#: One cue point (Microsoft/IBM RIFF 1991, "cue-ck"): dwName, dwPosition, fccChunk, dwChunkStart,
+#: dwBlockStart, dwSampleOffset.
+_CUE_POINT = struct.Struct("<II4sIII")
+
+
+def cue_payload(payload: bytes, old_align: int, new_align: int) -> tuple[bytes, str, str]:
+    """The ``cue `` payload of the output: ``(payload, fate, reason)``, fate "" when it is carried as it is.
+
+    A cue point gives its place twice: in samples (dwPosition, dwSampleOffset) and in bytes
+    (dwChunkStart: where its ``data`` chunk starts in a ``wavl`` list, 0 without one;
+    dwBlockStart: where the block holding it starts in that chunk's data). Samples stay
+    right (the frames are aligned one to one); a non-zero dwBlockStart counts bytes of the
+    input's block align, so when the output's differs (``--subtype``: 24-bit in, 16-bit out)
+    it is scaled to the output's. Offsets that cannot be scaled (not a whole number of
+    blocks, or inside a ``wavl`` list, which the output does not have) are left as they
+    were, and the reason says so.
+    """
+    if old_align == new_align or old_align <= 0 or new_align <= 0 or len(payload) < 4:
+        return payload, "", ""
+    count = struct.unpack_from("<I", payload, 0)[0]
+    count = min(count, (len(payload) - 4) // _CUE_POINT.size)
+    out = bytearray(payload)
+    scaled, left = 0, 0
+    for k in range(count):
+        at = 4 + k * _CUE_POINT.size
+        name, position, fcc, chunk_start, block_start, offset = _CUE_POINT.unpack_from(payload, at)
+        if block_start == 0 and chunk_start == 0:
+            continue
+        if chunk_start == 0 and fcc == b"data" and block_start % old_align == 0:
+            _CUE_POINT.pack_into(out, at, name, position, fcc, 0, block_start // old_align * new_align, offset)
+            scaled += 1
+        else:
+            left += 1
+    if not scaled and not left:
+        return payload, "", ""
+    why = []
+    if scaled:
+        why.append(f"dwBlockStart of {scaled} cue point{'s' if scaled != 1 else ''} scaled from block align "
+                   f"{old_align} to {new_align} bytes (the sample width changed); sample positions unchanged")
+    if left:
+        why.append(f"the byte offsets (dwChunkStart, dwBlockStart) of {left} cue point{'s' if left != 1 else ''} "
+                   f"left as they were, in blocks of {old_align} bytes: not a whole number of blocks of a 'data' "
+                   f"chunk, so they do not match the output's block align of {new_align}; their sample "
+                   "positions (dwPosition, dwSampleOffset) are right")
+    return bytes(out), "rewritten" if scaled else "carried", "; ".join(why)
 
 
 def peak_payload(tmp_path, data, fmt_payload: bytes) -> bytes | None:
@@ -210,6 +268,8 @@ def _same_as(out, tmp_path, kind, pieces) -> bool:
     for c, p in zip(out.chunks, pieces):
         if c.cid != p.cid:
             return False
+        if p.source is not None and p.cid != b"data":
+            return False  # a large chunk of the input's, which libsndfile did not write
         if p.source is not None or p.cid == b"ds64":
             continue
         mine = p.payload[8:8 + p.size] if p.raw else p.payload
