@@ -534,27 +534,6 @@ def test_one_worker_process_per_core_and_helper_threads_only_on_spare_cores(core
     assert batch.local_workers(cores, clips) == expected
 
 
-def test_progress_line_counts_files_hours_and_rate():
-    import io
-
-    from audition.cli.batch import BatchProgress
-
-    s = io.StringIO()
-    p = BatchProgress(2, stream=s, bar=True, verbose=True)
-    p({"status": "done", "duration_seconds": 1800.0, "input": "a", "output": "A", "seconds": 1.0, "reason": ""})
-    p({"status": "failed", "duration_seconds": None, "input": "b", "output": "B", "seconds": 0.1,
-       "reason": "'b': empty file"})
-    text = s.getvalue()
-    assert "1/2 files, 0.50 h of audio" in text
-    assert "2/2 files, 1 failed, 0.50 h of audio" in text  # the last row always draws
-    assert "failed   b: 'b': empty file" in text
-    assert "x real time" in text
-    # with figures, the per-file line gives the measured SNR gain (the predicted one only without a measurement)
-    p({"status": "done", "duration_seconds": 60.0, "input": "c", "output": "C", "seconds": 0.5, "reason": "",
-       "measured_snr_gain_db_itu468": 7.26, "predicted_snr_gain_db_itu468": 7.41})
-    assert "C (60.0 s of audio, SNR gain +7.3 dB itu468 measured) in 0.50 s" in s.getvalue()
-
-
 # ---------------------------------------------------------------------------
 # a Dask cluster (kept last: it leaves dask's threads in this process)
 # ---------------------------------------------------------------------------

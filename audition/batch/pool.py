@@ -4,7 +4,10 @@
 there are clips); :func:`_run_locally` runs the jobs in process pools, sends
 Ctrl-C on to the workers (how a worker takes it is set up by
 :func:`audition.batch.jobs._init_worker`), and runs again, one per process,
-the jobs of a worker that died, so only the culprit fails. Before forking,
+the jobs of a worker that died, so only the culprit fails. With
+``on_progress`` each worker writes how far its job is into a shared array
+(one float per job, no lock, a few writes a second: :class:`_JobProgress`),
+which the main process reads between its waits. Before forking,
 :func:`_warm_imports` imports what a render needs, scipy only when the jobs
 need it; keep every other import of this route inside its function.
 """
@@ -12,8 +15,14 @@ need it; keep every other import of this route inside its function.
 from __future__ import annotations
 
 import os
+import time
 
 from audition.batch.jobs import _failed_row, _init_worker, run_job
+
+#: Seconds between two writes of a job's progress by its worker (a phase's start and end always write).
+PROGRESS_EVERY_SECONDS = 0.2
+#: Set in a worker process by :func:`_init_counting_worker`: the shared array of the jobs' progress.
+_COUNTERS = None
 
 
 def default_workers() -> int:
@@ -39,8 +48,11 @@ def local_workers(cores: int, clips: int) -> tuple[int, bool]:
     return processes, cores // processes >= 2
 
 
-def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
+def _run_locally(jobs, n_workers, gather, mp_context, on_progress=None) -> bool:
     """Run the jobs in worker processes; True when interrupted.
+
+    ``on_progress({job index: fraction done})``, optional, is called in this
+    process a few times a second with the jobs still running.
 
     A worker process that dies (a crash inside a library on a malformed file)
     breaks the whole pool, and the pool kills its other workers. The jobs it
@@ -55,9 +67,14 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
     if ctx.get_start_method() == "fork":
         _warm_imports(jobs)
     stop = ctx.Event()
+    counting = None
+    if on_progress is not None and jobs:
+        # one float per job, written by its worker alone, read here: no lock (a worker killed holding one
+        # would stall the others); an aligned 8-byte store is read whole (x86-64, AArch64)
+        counting = (ctx.RawArray("d", max(job.index for job in jobs) + 1), on_progress)
     todo = list(jobs)
     while todo:
-        outcome = _one_pool(todo, n_workers, ctx, stop, gather)
+        outcome = _one_pool(todo, n_workers, ctx, stop, gather, counting)
         if outcome is None:
             return True
         started, not_started = outcome
@@ -66,7 +83,7 @@ def _run_locally(jobs, n_workers, gather, mp_context) -> bool:
                 gather(job, _failed_row(job, "worker processes die as they start"))
             return False
         for job in started:
-            solo = _one_pool([job], 1, ctx, stop, gather)
+            solo = _one_pool([job], 1, ctx, stop, gather, counting)
             if solo is None:
                 return True
             if solo[0]:
@@ -97,8 +114,49 @@ def _warm_imports(jobs) -> None:
         import scipy.signal  # noqa: F401
 
 
-def _one_pool(jobs, n_workers, ctx, stop, gather):
+class _JobProgress:
+    """In a worker: how far its job is, as a fraction of the whole job, written to the shared array.
+
+    The job's phases (survey, plan, render, measure; see ``pipeline.render_job``) count
+    equally: the survey, the render and the measurement each stream the clip once, and
+    the plan takes about as long as one pass on a ten-minute clip (measured, one core).
+    """
+
+    def __init__(self, counters, index: int):
+        self.counters, self.index = counters, index
+        self.base, self.share, self._last = 0.0, 1.0, 0.0
+
+    def phase(self, name: str, index: int, count: int) -> None:
+        self.base, self.share = (index - 1) / count, 1.0 / count
+        self._put(self.base)
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.monotonic()
+        if now - self._last < PROGRESS_EVERY_SECONDS and done < total:
+            return
+        self._last = now
+        self._put(self.base + self.share * (min(1.0, done / total) if total > 0 else 1.0))
+
+    def _put(self, fraction: float) -> None:
+        self.counters[self.index] = max(self.counters[self.index], fraction)
+
+
+def _init_counting_worker(stop_event, started_queue, parent_pid, counters) -> None:
+    """:func:`audition.batch.jobs._init_worker`, and remember the shared progress array."""
+    global _COUNTERS
+    _COUNTERS = counters
+    _init_worker(stop_event, started_queue, parent_pid)
+
+
+def _run_counted(job) -> dict:
+    """:func:`audition.batch.jobs.run_job` with its progress written to the shared array."""
+    return run_job(job, progress=None if _COUNTERS is None else _JobProgress(_COUNTERS, job.index))
+
+
+def _one_pool(jobs, n_workers, ctx, stop, gather, counting=None):
     """Run ``jobs`` in one process pool.
+
+    ``counting`` is None or ``(shared array, on_progress)`` (see :func:`_run_locally`).
 
     Returns None when interrupted; else ``(started, not_started)``: the jobs
     without a row when the pool broke, split by whether a worker had begun them
@@ -113,8 +171,12 @@ def _one_pool(jobs, n_workers, ctx, stop, gather):
     from audition import interrupt
 
     started_q = ctx.SimpleQueue()
-    pool = ProcessPoolExecutor(min(n_workers, len(jobs)), mp_context=ctx, initializer=_init_worker,
-                               initargs=(stop, started_q, os.getpid()))
+    if counting is None:
+        init, initargs, task, poll = _init_worker, (stop, started_q, os.getpid()), run_job, 0.5
+    else:
+        counters, on_progress = counting
+        init, initargs, task, poll = _init_counting_worker, (stop, started_q, os.getpid(), counters), _run_counted, 0.2
+    pool = ProcessPoolExecutor(min(n_workers, len(jobs)), mp_context=ctx, initializer=init, initargs=initargs)
     futures = {}
     gathered: set[int] = set()
     began: set[int] = set()
@@ -136,13 +198,13 @@ def _one_pool(jobs, n_workers, ctx, stop, gather):
         try:
             with interrupt.shielded():
                 for job in jobs:
-                    futures[pool.submit(run_job, job)] = job
+                    futures[pool.submit(task, job)] = job
         finally:
             interrupt.restore_mask(mask)
         pending = set(futures)
         while pending:
             interrupt.check()  # a signal whose KeyboardInterrupt a callback or finalizer lost
-            done, pending = wait(pending, timeout=0.5, return_when=FIRST_COMPLETED)
+            done, pending = wait(pending, timeout=poll, return_when=FIRST_COMPLETED)
             drain()
             for f in done:
                 job = futures[f]
@@ -153,6 +215,9 @@ def _one_pool(jobs, n_workers, ctx, stop, gather):
                     continue
                 gather(job, row)
                 gathered.add(job.index)
+            if counting is not None:
+                on_progress({j.index: counters[j.index] for j in jobs
+                             if j.index in began and j.index not in gathered})
     except KeyboardInterrupt:
         stop.set()
         for f in futures:

@@ -18,7 +18,8 @@ from audition.batch.pool import _run_locally, default_workers, local_workers
 from audition.batch.report import BatchResult, audiofile_now, summarise
 
 
-def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_context=None) -> BatchResult:
+def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_context=None,
+              on_progress=None) -> BatchResult:
     """Run the jobs; the main process gathers the rows.
 
     Parameters
@@ -35,6 +36,10 @@ def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_
         the same for its workers.
     on_row : callable, optional
         ``on_row(row)`` in the main process as each job ends (in the order they end).
+    on_progress : callable, optional
+        ``on_progress({job index: fraction of the job done})`` in the main process: a few
+        times a second with the running jobs (local workers), and with 1.0 as each job ends
+        (but not for one interrupted), just before ``on_row``. On a cluster only the ends are told.
     mp_context : multiprocessing context, optional
         How worker processes start (default: the platform's); jobs are picklable, so any works.
 
@@ -51,6 +56,8 @@ def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_
 
     def gather(job, row):
         rows[job.index] = row
+        if on_progress is not None and row["status"] != "not run":  # an interrupted clip is not done
+            on_progress({job.index: 1.0})
         if on_row is not None:
             on_row(row)
 
@@ -65,7 +72,7 @@ def run_batch(jobs, *, workers: int | None = None, client=None, on_row=None, mp_
         n_workers, threads = local_workers(workers or default_workers(), len(jobs))
         jobs = [replace(job, run=run, threads=threads) for job in jobs]
         runner = f"{n_workers} worker process(es)"
-        interrupted = _run_locally(jobs, n_workers, gather, mp_context)
+        interrupted = _run_locally(jobs, n_workers, gather, mp_context, on_progress)
     wall = time.perf_counter() - t0
     ordered = []
     for job in jobs:

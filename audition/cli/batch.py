@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import json
+import math
+import os
 import sys
 import time
 
 from audition.cli.filteropts import add_filter_options, add_source_options, filter_source
 from audition.cli.noiseopts import add_noise_options
+from audition.cli.render import ProgressBar, hms
 from audition.cli.values import SEED, number
 
 HELP = "render a whole set of clips (folder, pattern or manifest) in parallel, with one report for the set"
@@ -95,73 +98,206 @@ def noise_reference(args, auto):
     return None
 
 
-class BatchProgress:
-    """One line on stderr for the whole batch: files done, audio hours done, rate; redrawn at most 10 times a second."""
+#: Widest a --verbose line may be.
+VERBOSE_COLUMNS = 100
 
-    def __init__(self, total: int, stream=None, bar: bool = True, verbose: bool = False, width: int = 24):
-        self.total, self.stream, self.bar, self.verbose, self.width = total, stream or sys.stderr, bar, verbose, width
-        self.t0 = time.perf_counter()
+
+def clip_durations(jobs) -> dict[int, float]:
+    """Each job's length in seconds from its file's header (read here, before the workers start).
+
+    A file whose header cannot be read (it will fail in its worker) counts as the mean of the others.
+    """
+    import soundfile
+
+    def seconds(path):
+        try:
+            inf = soundfile.info(path)
+        except Exception:  # noqa: BLE001 - any unreadable header: its worker gives the reason
+            return None
+        return inf.frames / inf.samplerate if inf.samplerate else 0.0
+
+    known = {job.index: s for job in jobs if (s := seconds(job.input)) is not None}
+    mean = sum(known.values()) / len(known) if known else 1.0
+    return {job.index: known.get(job.index, mean) for job in jobs}
+
+
+class BatchProgress(ProgressBar):
+    """One line on stderr for the whole batch, redrawn at most ten times a second (:class:`ProgressBar`'s).
+
+    It counts audio done across the clips: each running job's fraction (its survey, plan,
+    render and measurement, told by its worker through ``run_batch(on_progress=...)``)
+    times its length, plus the clips that have ended. The time left is the audio still to
+    do at the pace of this run's own work (clips skipped by --resume do not speed it up).
+    Called with a row (``on_row``) it counts the clip and, with ``verbose``, writes its line.
+    """
+
+    def __init__(self, jobs, stream=None, bar: bool = True, verbose: bool = False, durations=None,
+                 clock=time.perf_counter, columns: int | None = None):
+        super().__init__("batch", stream)
+        self.bar, self.verbose, self.clock = bar, verbose, clock
+        self.t0 = clock()
+        self.total = len(jobs)
+        self.durations = dict(durations if durations is not None else clip_durations(jobs) if bar else {})
+        self.total_audio = sum(self.durations.values())
+        self.fraction: dict[int, float] = {}
         self.files = self.failed = 0
-        self.audio = self.rendered_audio = 0.0
-        self._last = 0.0
-        self._shown = 0
+        self.skipped_audio = 0.0
+        self.columns = columns
+        if self.bar:
+            self.draw(force=True)
 
-    def line(self) -> str:
-        frac = self.files / self.total if self.total else 1.0
-        fill = int(round(frac * self.width))
-        elapsed = max(time.perf_counter() - self.t0, 1e-9)
-        rate = self.rendered_audio / elapsed
-        failed = f", {self.failed} failed" if self.failed else ""
-        return (f"batch [{'#' * fill}{'.' * (self.width - fill)}] {self.files}/{self.total} files{failed}, "
-                f"{self.audio / 3600.0:.2f} h of audio, {rate:,.0f}x real time")
+    # -- what the workers tell -------------------------------------------------------------
+
+    def progress(self, fractions: dict) -> None:
+        """``run_batch``'s ``on_progress``: fractions of the running (or just ended) jobs."""
+        for index, frac in fractions.items():
+            if frac > self.fraction.get(index, 0.0):
+                self.fraction[index] = min(1.0, float(frac))
+        if self.bar:
+            self.draw()
 
     def __call__(self, row: dict) -> None:
-        self.files += 1
+        self.files += row["status"] != "not run"  # an interrupted clip has not ended
         self.failed += row["status"] == "failed"
-        if row["status"] in ("done", "skipped"):
-            self.audio += row["duration_seconds"] or 0.0
-        if row["status"] == "done":
-            self.rendered_audio += row["duration_seconds"] or 0.0
+        if row["status"] == "skipped":
+            self.skipped_audio += row.get("duration_seconds") or 0.0
         if self.verbose:
-            self._clear()
+            if self._shown:
+                self.stream.write("\r" + " " * self._shown + "\r")
+                self._shown = 0
             self.stream.write(per_file_line(row) + "\n")
-        now = time.perf_counter()
-        if self.bar and (now - self._last >= 0.1 or self.files == self.total):
-            self._last = now
-            text = self.line()
-            self.stream.write("\r" + text + " " * max(0, self._shown - len(text)))
-            self._shown = len(text)
+        if self.bar:
+            self.draw(force=self.verbose or self.files == self.total)
         self.stream.flush()
 
-    def _clear(self):
-        if self._shown:
-            self.stream.write("\r" + " " * self._shown + "\r")
-            self._shown = 0
+    # -- the line --------------------------------------------------------------------------
+
+    def audio_done(self) -> float:
+        return sum(self.durations.get(i, 0.0) * f for i, f in self.fraction.items())
+
+    def line(self) -> str:
+        if self.total_audio > 0:
+            done = self.audio_done()
+            frac = done / self.total_audio
+        else:
+            done, frac = 0.0, (self.files / self.total if self.total else 1.0)
+        if self.files < self.total:
+            frac = min(frac, 0.999)  # 100.0 % only when every clip has ended
+        elapsed = self.clock() - self.t0
+        worked = done - self.skipped_audio
+        left = ""
+        if self.files < self.total and frac > 0.02 and elapsed > 1.0 and worked > 0:
+            left = f"{hms((self.total_audio - done) * elapsed / worked)} left"
+        # the counts keep their widths, and room is kept for the time left: the bar does not jump about
+        n = len(str(self.total))
+        clips = f"{self.files:{n}d}/{self.total} clips" + (f", {self.failed} failed" if self.failed else "")
+        whole = hms(self.total_audio)
+        audio = f"{hms(done):>{len(whole)}}/{whole} audio" if self.total_audio > 0 else ""
+        pct = f"{math.floor(frac * 1000.0) / 10.0:5.1f} %"
+        cols = self._columns() - 1  # never the last column: no wrap on any terminal
+        for parts in ((clips, audio), (clips,), (f"{self.files}/{self.total}",)):
+            tail = "  ".join((pct,) + parts)
+            width = min(24, cols - len("batch [] ") - len(tail) - len("  0:00:00 left"))
+            if width >= 8:
+                fill = round(frac * width)
+                return (f"batch [{'#' * fill}{'.' * (width - fill)}] {tail}" + (f"  {left}" if left else ""))[:cols]
+        return f"batch {tail}  {left}"[:cols]
+
+    def draw(self, force: bool = False) -> None:
+        now = self.clock()
+        if not force and now - self._last < 0.1:
+            return
+        self._last = now
+        self._draw(self.line())
+
+    def _columns(self) -> int:
+        if self.columns is not None:
+            return self.columns
+        try:
+            cols = os.get_terminal_size(self.stream.fileno()).columns
+        except (OSError, ValueError, AttributeError):
+            return 80
+        return min(80, cols) if cols > 0 else 80  # a terminal that tells no size (0) is taken as 80 wide
 
     def close(self) -> None:
-        self._clear()
-        self.stream.flush()
+        if self._shown:
+            super().close()
 
 
-def per_file_line(row: dict) -> str:
+def shorten_left(text: str, width: int) -> str:
+    """``text`` in at most ``width`` columns: its start replaced by "..." when too long (a path keeps its end)."""
+    return text if len(text) <= width else "..." + text[len(text) - max(0, width - 3):]
+
+
+def shorten_right(text: str, width: int) -> str:
+    return text if len(text) <= width else text[:max(0, width - 3)] + "..."
+
+
+def _clip_name(path: str) -> str:
+    """A clip's path as typed from here when it is below the current folder, else in full."""
+    try:
+        rel = os.path.relpath(path)
+    except ValueError:
+        return path
+    return rel if not rel.startswith("..") else path
+
+
+def _shape(row: dict) -> str:
+    """The filter's shape from a row: "order 4 Butterworth", "order 2, Q 0.707", "order 3, 2 sections"."""
+    order, alignment = row.get("order"), row.get("alignment")
+    if alignment:
+        return f"order {order} {str(alignment).replace('-', '–').title()}"
+    if order == 1:
+        return "order 1"
+    if order == 2 and isinstance(row.get("q"), (int, float)):
+        return f"order 2, Q {row['q']:.3f}"
+    return f"order {order}, {row.get('sections')} sections" if order else ""
+
+
+def without_path(reason: str, path: str) -> str:
+    """A reason without the clip's own path in front (the line already names the clip)."""
+    for head in (f"{path!r}: ", f"{path}: "):
+        if reason.startswith(head):
+            return reason[len(head):]
+    return reason
+
+
+def per_file_line(row: dict, columns: int = VERBOSE_COLUMNS) -> str:
+    """A clip's --verbose line: status, clip, and the filter (f0 and shape) or the reason; at most ``columns``."""
     what = row["status"]
-    if what == "failed" or what == "not run":
-        return f"{what:8} {row['input']}: {row['reason']}"
-    dur = row.get("duration_seconds") or 0.0
-    figures = ""
+    name = _clip_name(row["input"])
+    head = f"{what:9} "
+    if what in ("failed", "not run", "no filter"):
+        reason = without_path(row.get("reason") or "", row["input"])
+        room = columns - len(head) - 2
+        name = shorten_left(name, max(20, min(len(name), room - min(len(reason), 40))))
+        return head + name + ": " + shorten_right(reason, room - len(name))
+    parts = []  # most telling first: the filter, the SNR gain, the length and the time it took
+    if isinstance(row.get("f0_hz"), (int, float)):
+        parts.append(", ".join(p for p in (f"f0 {row['f0_hz']:,.0f} Hz", _shape(row)) if p))
     for kind in ("measured", "predicted"):
         gain = row.get(f"{kind}_snr_gain_db_itu468")
         if isinstance(gain, (int, float)):
-            figures = f", SNR gain {gain:+.1f} dB itu468 {kind}"
+            parts.append(f"SNR {gain:+.1f} dB (ITU-R 468, {kind})")
             break
-    took = f" in {row['seconds']:.2f} s" if what == "done" and row.get("seconds") else ""
-    return f"{what:8} {row['output']} ({dur:.1f} s of audio{figures}){took}"
+    if row.get("duration_seconds"):
+        took = f" in {hms(row['seconds'])}" if what == "done" and row.get("seconds") is not None else ""
+        parts.append(f"{hms(row['duration_seconds'])} of audio{took}")
+    # drop the least telling parts before cutting the clip's name below 30 columns
+    for n in range(len(parts), -1, -1):
+        details = "; ".join(parts[:n])
+        room = columns - len(head) - (2 + len(details) if details else 0)
+        if room >= min(len(name), 30) or n <= 1:
+            break
+    name = shorten_left(name, max(20, room))
+    line = head + name + (": " + details if details else "")
+    return shorten_right(line, columns)
 
 
 def _clock(seconds: float) -> str:
-    m, s = divmod(seconds, 60.0)
-    h, m = divmod(int(m), 60)
-    return f"{h}:{m:02d}:{s:04.1f}"
+    """A duration as h:mm:ss, rounded to the second."""
+    s = round(max(0.0, seconds))
+    return f"{s // 3600}:{s // 60 % 60:02d}:{s % 60:02d}"
 
 
 def format_summary(result, paths) -> str:
@@ -171,11 +307,11 @@ def format_summary(result, paths) -> str:
     lines = [f"batch: {s['files']} clip(s): {c['done']} rendered, {c.get('no_filter', 0)} no filter, "
              f"{c['skipped']} already done, {c['failed']} failed"
              + (f", {c['not_run']} not run (interrupted)" if c["not_run"] else ""),
-             f"  {_clock(s['rendered_audio_seconds'])} of audio rendered in {s['wall_seconds']:.2f} s"
+             f"  {_clock(s['rendered_audio_seconds'])} of audio rendered in {_clock(s['wall_seconds'])}"
              + (f" ({thr:,.1f}x real time)" if thr else "") + f" on {s['runner']}"]
     for r in result.rows:
         if r["status"] in ("failed", "no filter"):
-            lines.append(f"  {r['status']}: {r['input']}: {r['reason']}")
+            lines.append(f"  {r['status']}: {r['input']}: {without_path(r['reason'] or '', r['input'])}")
     lines.append(f"  report: {paths[0]} and {paths[1]}")
     if result.interrupted:
         lines.append("  interrupted: run the same command with --resume to finish")
@@ -254,9 +390,10 @@ def run(args) -> int:
         except OSError as exc:
             raise OutputRefused(f"OUTDIR {args.outdir!r}: cannot be made ({exc.strerror or exc})") from None
         show = not args.quiet and not args.json
-        progress = BatchProgress(len(jobs), bar=show and sys.stderr.isatty(), verbose=args.verbose)
+        progress = BatchProgress(jobs, bar=show and sys.stderr.isatty(), verbose=args.verbose)
         try:
-            result = batch.run_batch(jobs, workers=args.workers, client=client, on_row=progress)
+            result = batch.run_batch(jobs, workers=args.workers, client=client, on_row=progress,
+                                     on_progress=progress.progress if progress.bar else None)
         finally:
             progress.close()
     finally:
