@@ -282,6 +282,22 @@ class Window:
         return len(b)
 
 
+#: WAVE_FORMAT_EXTENSIBLE, the format tag of a fmt chunk with valid bits, channel mask and sub-format.
+EXTENSIBLE = 0xFFFE
+
+
+def parse_fmt(p: bytes) -> dict:
+    """The fields of a ``fmt `` payload (Microsoft WAVEFORMATEX / WAVEFORMATEXTENSIBLE)."""
+    tag, ch, rate, avg, align, bits = struct.unpack_from("<HHIIHH", p, 0)
+    out = {"format_tag": tag, "channels": ch, "rate_hz": rate, "bytes_per_second": avg, "block_align": align,
+           "bits_per_sample": bits, "valid_bits": bits, "channel_mask": None, "coding": tag}
+    if tag == EXTENSIBLE and len(p) >= 40:
+        valid, mask = struct.unpack_from("<HI", p, 18)
+        out.update(valid_bits=valid or bits, channel_mask=mask, coding=struct.unpack_from("<H", p, 24)[0],
+                   sub_format=p[24:40].hex())
+    return out
+
+
 def open_wave64(path, raw):
     """Open an RF64/BW64 file's audio as raw PCM/float through :class:`Window`, or return None.
 
@@ -293,8 +309,6 @@ def open_wave64(path, raw):
     Returns ``(soundfile.SoundFile, format, subtype)``.
     """
     import soundfile as sf
-
-    from audition.io.archive.wave import parse_fmt
 
     lay = read_layout(path)
     if lay is None or lay.kind == b"RIFF":

@@ -26,7 +26,8 @@ import struct
 
 from audition.io.archive import bext as _bext
 from audition.io.archive.inventory import Fate
-from audition.io.archive.riff import RIFF_MAX, Piece, read_layout, read_payload, write_file
+from audition.io.archive.riff import EXTENSIBLE as _EXTENSIBLE
+from audition.io.archive.riff import RIFF_MAX, Piece, parse_fmt, read_layout, read_payload, write_file
 
 #: Chunks holding figures of the input's samples; stale once the samples change (PEAK is measured again
 #: on float outputs, :func:`peak_payload`).
@@ -34,22 +35,9 @@ STALE = {b"PEAK": "peak values and positions of the input's samples, stale after
                   "for float outputs)",
          b"levl": "peak envelope of the input's samples (EBU Tech 3285 s. 3), stale after filtering",
          b"md5 ": "checksum of the input's audio, stale after filtering"}
-_EXTENSIBLE = 0xFFFE
 #: Carried chunks larger than this are copied from the input by byte range, never read whole.
 INLINE_MAX = 1 << 20
 _GUID_TAIL = bytes.fromhex("000000001000800000aa00389b71")
-
-
-def parse_fmt(p: bytes) -> dict:
-    """The fields of a ``fmt `` payload (Microsoft WAVEFORMATEX / WAVEFORMATEXTENSIBLE)."""
-    tag, ch, rate, avg, align, bits = struct.unpack_from("<HHIIHH", p, 0)
-    out = {"format_tag": tag, "channels": ch, "rate_hz": rate, "bytes_per_second": avg, "block_align": align,
-           "bits_per_sample": bits, "valid_bits": bits, "channel_mask": None, "coding": tag}
-    if tag == _EXTENSIBLE and len(p) >= 40:
-        valid, mask = struct.unpack_from("<HI", p, 18)
-        out.update(valid_bits=valid or bits, channel_mask=mask, coding=struct.unpack_from("<H", p, 24)[0],
-                   sub_format=p[24:40].hex())
-    return out
 
 
 def fmt_record(p: bytes) -> dict:
