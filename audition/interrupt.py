@@ -33,6 +33,7 @@ _received: int | None = None  # the first signal recorded (its number)
 _depth = 0  # how deep the main thread is in shielded stretches
 _previous: dict | None = None  # the handlers install() replaced
 _active = None  # optional callable: is a signal to be acted on now? (a batch worker's idle time is not)
+_early = False  # install_early() ran and no install() has taken over yet
 
 
 def received() -> int | None:
@@ -75,14 +76,31 @@ def _cannot_raise(frame) -> bool:
                                                                                "_after_at_fork_child_reinit_locks")
 
 
+def install_early() -> None:
+    """Record SIGINT and SIGTERM from the package's first line on, raising nothing yet.
+
+    For the ``audition`` command only (see ``audition/__init__.py``): a signal that lands
+    while the command line's modules are imported is kept, and the :func:`install` that
+    :func:`audition.cli.main` makes next acts on it, so it is neither lost nor printed
+    as a traceback.
+    """
+    global _previous, _depth, _early
+    previous = {s: signal.signal(s, _handler) for s in SIGNALS}
+    if _previous is None:
+        _previous = previous
+    _depth, _early = 1, True  # a shielded stretch until install()
+
+
 def install(active=None) -> None:
     """Take SIGINT and SIGTERM in this process (main thread only); forget any signal recorded before.
 
-    ``active(signum)``, when given, says whether a signal that comes now is
-    recorded at all (a batch worker between jobs leaves Ctrl-C to its parent).
+    A signal recorded since :func:`install_early` is kept. ``active(signum)``, when
+    given, says whether a signal that comes now is recorded at all (a batch worker
+    between jobs leaves Ctrl-C to its parent).
     """
-    global _previous, _received, _active, _depth
-    _received, _active, _depth = None, active, 0
+    global _previous, _received, _active, _depth, _early
+    _received = _received if _early else None
+    _active, _depth, _early = active, 0, False
     previous = {}
     for s in SIGNALS:
         previous[s] = signal.signal(s, _handler)
@@ -96,7 +114,7 @@ def uninstall() -> None:
     if _previous is not None:
         for s, h in _previous.items():
             signal.signal(s, h if h is not None else signal.SIG_DFL)
-    _previous, _active, _received, _depth = None, None, None, 0
+    _previous, _active, _received, _depth, _early = None, None, None, 0, False
 
 
 def check() -> None:

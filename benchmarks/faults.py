@@ -13,13 +13,18 @@ After each run it checks: every output in place is whole (its frames are the inp
 bytes hash to the SHA-256 its sidecar records, no output without its sidecar); no ``.part``
 file is left; no process of the run outlives it; a signal is never lost (a run that was
 signalled exits 128 + the signal's number, or 0 only when everything was finished and
-committed); no traceback text on stderr; of two concurrent renders exactly one writes.
+committed); no traceback text on stderr; of two concurrent renders exactly one writes. A
+SIGINT in the first few milliseconds, while CPython itself starts (its ``site`` module), ends
+the interpreter with CPython's own "Fatal Python error: init_import_site" and exit 1 before any
+line of audition runs: nothing is written, and such runs are counted apart.
 
 Usage::
 
     python benchmarks/faults.py --repeats 20 [--seed 1] [--json]
 
-Random moments come from ``random.Random(seed)``; the clips are seeded noise.
+Random moments come from ``random.Random(seed)``, spread over 2-95 % of the time one
+unsignalled run of the same command takes on this machine (timed first), so that most signals
+land while the work runs and some during start-up; the clips are seeded noise.
 """
 
 from __future__ import annotations
@@ -105,6 +110,20 @@ def check_outputs(folder, inputs):
     return bad, parts
 
 
+def in_startup(proc, err):
+    """Stopped by SIGINT while CPython itself was starting (its site module, before any line of audition ran).
+
+    CPython then prints "Fatal Python error: init_import_site" (or init_sys_streams) with its own
+    traceback and exits 1; nothing of audition's ran, so nothing was written. Counted apart.
+    """
+    return proc.returncode == 1 and b"Fatal Python error: init_" in err
+
+
+def ours(err):
+    """Traceback text on stderr that is not CPython's own start-up failure (see in_startup)."""
+    return (b"Traceback" in err or b"Exception ignored" in err) and b"Fatal Python error: init_" not in err
+
+
 def wait_gone(text, deadline=60.0):
     end = time.monotonic() + deadline
     while time.monotonic() < end:
@@ -115,10 +134,28 @@ def wait_gone(text, deadline=60.0):
     return processes_naming(text)
 
 
-def one_batch(work, src, inputs, rng, how):
+BATCH = ("batch", "{src}", "{out}", "--preset", "cassette-ferric", "--no-figures", "--workers", "2", "--quiet")
+RENDER = ("render", "{src}", "{out}", "--f0", "8000", "--quiet")
+
+
+def command(template, src, out):
+    return [a.format(src=src, out=out) for a in template]
+
+
+def time_whole_run(work, template, src, out):
+    """Seconds one unsignalled run takes here: the random moments are spread over it."""
+    t = time.monotonic()
+    proc = audition(*command(template, src, os.path.join(work, out)))
+    proc.communicate(timeout=600)
+    if proc.returncode != 0:
+        raise SystemExit(f"faults: the unsignalled {template[0]} exited {proc.returncode}")
+    return time.monotonic() - t
+
+
+def one_batch(work, src, inputs, rng, how, span):
     out = os.path.join(work, "out")
-    proc = audition("batch", src, out, "--preset", "cassette-ferric", "--no-figures", "--workers", "2", "--quiet")
-    delay = rng.uniform(0.25, 1.2)
+    proc = audition(*command(BATCH, src, out))
+    delay = rng.uniform(0.02, 0.95) * span  # from the lazy imports to the last clip
     time.sleep(delay)
     alive = proc.poll() is None
     if alive:
@@ -139,15 +176,15 @@ def one_batch(work, src, inputs, rng, how):
         finished = proc.returncode == 0 and os.path.exists(rep) and \
             json.load(open(rep))["summary"]["counts"]["done"] == len(inputs)
         # -SIGINT: stopped by Python's own handler before audition's was in place (nothing written yet)
-        lost = alive and not (proc.returncode in (130, -signal.SIGINT) or finished)
+        lost = alive and not (proc.returncode in (130, -signal.SIGINT) or finished or in_startup(proc, err))
     return dict(delay_s=round(delay, 3), signalled=alive, rc=proc.returncode, bad=bad, parts=parts,
-                orphans=orphans, lost=lost, traceback=b"Traceback" in err or b"Exception ignored" in err)
+                orphans=orphans, lost=lost, startup=in_startup(proc, err), traceback=ours(err))
 
 
-def one_render(work, src, frames, rng):
+def one_render(work, src, frames, rng, span):
     out = os.path.join(work, "o.wav")
-    proc = audition("render", src, out, "--f0", "8000", "--quiet")
-    delay = rng.uniform(0.05, 1.0)
+    proc = audition(*command(RENDER, src, out))
+    delay = rng.uniform(0.02, 0.95) * span
     time.sleep(delay)
     alive = proc.poll() is None
     if alive:
@@ -159,12 +196,12 @@ def one_render(work, src, frames, rng):
     # -SIGTERM: killed by the default action before audition's handler was in place (nothing written yet)
     lost = alive and not (proc.returncode in (143, -signal.SIGTERM) or finished)
     return dict(delay_s=round(delay, 3), signalled=alive, rc=proc.returncode, bad=bad, parts=parts,
-                orphans=orphans, lost=lost, traceback=b"Traceback" in err or b"Exception ignored" in err)
+                orphans=orphans, lost=lost, startup=in_startup(proc, err), traceback=ours(err))
 
 
 def one_concurrent(work, src, frames):
     out = os.path.join(work, "o.wav")
-    procs = [audition("render", src, out, "--f0", "8000", "--quiet", group=False) for _ in range(2)]
+    procs = [audition(*command(RENDER, src, out), group=False) for _ in range(2)]
     rcs, errs = [], []
     for p in procs:
         _, e = p.communicate(timeout=300)
@@ -199,10 +236,18 @@ def main(argv=None) -> int:
         clip(long_in, 300.0, 7)
         short_in = os.path.join(base, "short.wav")
         clip(short_in, 10.0, 8)
+        calib = os.path.join(base, "calibration")
+        os.makedirs(calib)
+        batch_s = time_whole_run(calib, BATCH, src, "out")
+        render_s = time_whole_run(calib, RENDER, long_in, "o.wav")
+        shutil.rmtree(calib)
+        if not a.json:
+            print(f"unsignalled runs here: batch {batch_s:.2f} s, render {render_s:.2f} s; signals land at "
+                  "2-95 % of that", flush=True)
         runs = {
-            "batch-sigint": lambda w: one_batch(w, src, inputs, rng, "sigint"),
-            "batch-sigkill-main": lambda w: one_batch(w, src, inputs, rng, "sigkill"),
-            "render-sigterm": lambda w: one_render(w, long_in, 300 * RATE, rng),
+            "batch-sigint": lambda w: one_batch(w, src, inputs, rng, "sigint", batch_s),
+            "batch-sigkill-main": lambda w: one_batch(w, src, inputs, rng, "sigkill", batch_s),
+            "render-sigterm": lambda w: one_render(w, long_in, 300 * RATE, rng, render_s),
             "render-concurrent": lambda w: one_concurrent(w, short_in, 10 * RATE),
         }
         for name, run in runs.items():
@@ -220,6 +265,7 @@ def main(argv=None) -> int:
                 "part_files_left": sum(len(r["parts"]) for r in rows),
                 "orphan_processes": sum(len(r["orphans"]) for r in rows),
                 "lost_signals": sum(bool(r["lost"]) for r in rows),
+                "stopped_in_interpreter_startup": sum(bool(r.get("startup")) for r in rows),
                 "traceback_runs": sum(bool(r["traceback"]) for r in rows),
                 **({"exactly_one_wrote": sum(r["one_wrote"] for r in rows)} if name == "render-concurrent" else {}),
                 "problems": [r for r in rows if r["bad"] or r["parts"] or r["orphans"] or r["lost"] or r["traceback"]
@@ -230,7 +276,8 @@ def main(argv=None) -> int:
                 print(f"{name}: {r['runs']} runs ({r['signalled']} signalled while running), exit codes "
                       f"{r['exit_codes']}; truncated/unmatched outputs "
                       f"{r['truncated_or_unmatched_outputs']}, .part left {r['part_files_left']}, orphans "
-                      f"{r['orphan_processes']}, lost signals {r['lost_signals']}, tracebacks {r['traceback_runs']}"
+                      f"{r['orphan_processes']}, lost signals {r['lost_signals']}, tracebacks {r['traceback_runs']}, "
+                      f"stopped while CPython started {r['stopped_in_interpreter_startup']}"
                       + (f", exactly one of two wrote {r['exactly_one_wrote']}/{r['runs']}"
                          if "exactly_one_wrote" in r else ""), flush=True)
                 for p in r["problems"]:

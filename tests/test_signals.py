@@ -227,6 +227,33 @@ def test_a_sigint_during_the_start_is_never_lost(tmp_path, long_clip):
         assert not (folder / "o.wav").exists() and not parts(folder)
 
 
+def test_a_signal_during_the_commands_own_imports_is_kept_and_ends_it_without_a_traceback(tmp_path):
+    # The window the random-moment runs of benchmarks/faults.py found: a SIGINT after Python started but
+    # before cli.main() took the signals gave a KeyboardInterrupt traceback and exit -2. Here the signal
+    # lands deterministically between "import audition" (what the command's script does first) and main().
+    clip = tmp_path / "c.wav"
+    sf.write(clip, np.zeros((4410, 1)), 44100)
+    child = (
+        "import os, signal, sys\n"
+        "sys.orig_argv = [sys.executable, '-m', 'audition']; sys.argv = ['-m']\n"
+        "import audition\n"
+        "os.kill(os.getpid(), signal.SIGINT)\n"
+        "sys.argv = ['audition', 'survey', sys.argv_clip]\n"
+        "from audition.cli import main\n"
+        "sys.exit(main())\n"
+    ).replace("sys.argv_clip", repr(str(clip)))
+    proc = subprocess.run([sys.executable, "-c", child], capture_output=True, timeout=120)
+    assert proc.returncode == 130, proc.stderr  # 128 + SIGINT: common practice of POSIX shells, no source
+    assert proc.stderr.decode().strip() == "audition: interrupted by SIGINT"
+    assert proc.stdout == b""  # the survey never ran
+
+
+def test_importing_the_package_from_python_leaves_the_signal_handlers_alone():
+    code = ("import signal, sys; h = signal.getsignal(signal.SIGINT); import audition, audition.cli; "
+            "sys.exit(0 if signal.getsignal(signal.SIGINT) is h else 1)")
+    assert subprocess.run([sys.executable, "-c", code], timeout=60).returncode == 0
+
+
 def test_the_next_render_removes_a_killed_renders_temporary_file_but_not_a_living_ones(tmp_path):
     import fcntl
 
