@@ -242,22 +242,38 @@ def _heard(bands: Bands, programme: np.ndarray, noise: np.ndarray, listening_lev
     return _HeardColumns(np.concatenate(sone), np.concatenate(audible, axis=1))
 
 
+def _heard_frames(bands: Bands, gain_programme: np.ndarray, gain_noise: np.ndarray,
+                  listening_level_db: float) -> _HeardColumns:
+    """:func:`_heard` on every frame, the programme and hiss each through its in-band gains (B,).
+
+    The filtered frames are made chunk by chunk, so the working memory stays the same
+    whatever the length of the file.
+    """
+    noise = bands.noise * gain_noise
+    parts = []
+    for i in range(0, max(len(bands.frames), 1), HEARD_CHUNK):
+        prog = np.maximum(bands.frames[i:i + HEARD_CHUNK] - bands.noise[None, :], 0.0) * gain_programme[None, :]
+        parts.append(_heard(bands, prog, np.broadcast_to(noise, prog.shape), listening_level_db))
+    return _HeardColumns(np.concatenate([r.heard_sone for r in parts]),
+                         np.concatenate([r.audible for r in parts], axis=1))
+
+
 def hiss_heard(bands: Bands, gain_programme: np.ndarray, gain_noise: np.ndarray,
                listening_level_db: float) -> HissHeard:
     """The hiss heard on every frame before and after a filter with in-band gains ``gain_*`` (B,)."""
     from audition.hearing.zwicker import THIRD_OCTAVE_HZ
 
-    prog = bands.programme_frames
-    if len(prog) == 0:
+    if len(bands.frames) == 0:
         z = np.zeros(len(THIRD_OCTAVE_HZ))
         return HissHeard(0.0, 0.0, 0.0, z, z, np.asarray(THIRD_OCTAVE_HZ, dtype=float))
-    noise = np.broadcast_to(bands.noise, prog.shape)
     key = ("unfiltered", float(listening_level_db))
     if key not in bands.cache:  # the same for every filter judged on these frames
-        res = _heard(bands, prog, noise, listening_level_db)
+        ones = np.ones(len(bands.noise))
+        res = _heard_frames(bands, ones, ones, listening_level_db)
         bands.cache[key] = (float(np.mean(res.heard_sone)), np.asarray(res.audible).mean(axis=1))
     before, share_before = bands.cache[key]
-    res = _heard(bands, prog * gain_programme[None, :], noise * gain_noise[None, :], listening_level_db)
+    res = _heard_frames(bands, np.asarray(gain_programme, dtype=float), np.asarray(gain_noise, dtype=float),
+                        listening_level_db)
     after = float(np.mean(res.heard_sone))
     return HissHeard(before, after, _reduction(before, after), share_before, np.asarray(res.audible).mean(axis=1),
                      np.asarray(THIRD_OCTAVE_HZ, dtype=float))
