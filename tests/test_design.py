@@ -122,6 +122,25 @@ def test_bessel_second_order_worked_example():
     assert factor == pytest.approx(math.sqrt(3) / math.sqrt((-3 + math.sqrt(45)) / 2), rel=1e-12)
 
 
+@pytest.mark.parametrize("order", range(1, 9))
+def test_bessel_sections_match_scipy_besselap(order):
+    # Reference library: scipy.signal.besselap(N, norm="mag") poles; a pair p is a section with
+    # omega0 = |p| and Q = |p| / (-2 Re p), a real pole a first-order section at -p.
+    from scipy.signal import besselap
+
+    _, poles, _ = besselap(order, norm="mag")
+    want = sorted([(float(-p.real), None) for p in poles if abs(p.imag) < 1e-9] +
+                  [(float(abs(p)), float(abs(p) / (-2 * p.real))) for p in poles if p.imag > 1e-9],
+                  key=lambda fq: -1.0 if fq[1] is None else fq[1])
+    got = design.bessel_sections(order)
+    assert len(got) == len(want)
+    for (fg, qg), (fw, qw) in zip(got, want):
+        assert fg == pytest.approx(fw, rel=1e-10)
+        assert (qg is None) == (qw is None)
+        if qw is not None:
+            assert qg == pytest.approx(qw, rel=1e-10)
+
+
 @pytest.mark.parametrize("order", [2, 3, 4, 6])
 def test_bessel_is_3db_down_at_f0(order):
     # Magnitude normalisation (scipy.signal.besselap norm="mag"): -3.01 dB at the design f0.

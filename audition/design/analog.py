@@ -100,21 +100,44 @@ def bessel_sections(order: int) -> list[tuple[float, float | None]]:
 
     Notes
     -----
-    Poles from :func:`scipy.signal.besselap`; a pair p gives omega0 = |p| and
-    Q = |p| / (-2 Re p).
+    The poles are the roots of the reverse Bessel polynomial
+    theta_N(s) = sum_k (2N - k)! / (2^(N - k) k! (N - k)!) s^k (the delay-normalised
+    Bessel-Thomson low-pass H(s) = theta_N(0)/theta_N(s); e.g. Williams & Taylor, Electronic
+    Filter Design Handbook, ch. 2), divided by the frequency where |H|^2 = 1/2. A pair p
+    gives omega0 = |p| and Q = |p| / (-2 Re p). tests/test_design.py checks them against
+    :func:`scipy.signal.besselap` with ``norm="mag"``, which is not imported here: importing
+    scipy.signal takes about a second, longer than the whole plan of a short clip.
     """
     return list(_bessel_table(int(order)))
 
 
+def _bessel_poles(order: int) -> np.ndarray:
+    """Poles of the order-N Bessel low-pass, magnitude-normalised (-3.01 dB at 1 rad/s)."""
+    n = order
+    a = np.array([math.factorial(2 * n - k) / (2 ** (n - k) * math.factorial(k) * math.factorial(n - k))
+                  for k in range(n + 1)])  # a[k]: coefficient of s^k
+    poly = a[::-1]  # highest power first, as np.roots and np.polyval take it
+
+    def falls_past_half(w: float) -> bool:  # |H(jw)|^2 < 1/2; |H| falls monotonically for a Bessel
+        return abs(np.polyval(poly, 1j * w)) ** 2 > 2.0 * a[0] ** 2
+
+    lo, hi = 0.0, 1.0
+    while not falls_past_half(hi):
+        lo, hi = hi, 2.0 * hi
+    for _ in range(200):  # bisection to the last bits of a double
+        mid = 0.5 * (lo + hi)
+        if mid in (lo, hi):
+            break
+        lo, hi = (lo, mid) if falls_past_half(mid) else (mid, hi)
+    return np.roots(poly) / (0.5 * (lo + hi))
+
+
 @functools.lru_cache(maxsize=None)
 def _bessel_table(order: int) -> tuple[tuple[float, float | None], ...]:
-    # Computed once per order: besselap takes milliseconds and the planner asks at every f0 of its grid.
-    from scipy.signal import besselap
-
-    _, poles, _ = besselap(order, norm="mag")
+    # Computed once per order: the planner asks at every f0 of its grid.
     out: list[tuple[float, float | None]] = []
-    for p in poles:
-        if abs(p.imag) < 1e-12 * abs(p):
+    for p in _bessel_poles(order):
+        if abs(p.imag) < 1e-9 * abs(p):
             out.append((float(-p.real), None))
         elif p.imag > 0:
             out.append((float(abs(p)), float(abs(p) / (-2.0 * p.real))))
