@@ -189,6 +189,8 @@ def _batch_result(n=10):
                      "measured_treble_loss_db": loss if st == "done" else None,
                      "measured_snr_gain_db_itu468": gain if st == "done" else None,
                      "predicted_treble_loss_db": loss + 0.1, "predicted_snr_gain_db_itu468": gain + 0.2,
+                     "measured_hiss_heard_reduction_pct": 20.0 * gain if st == "done" else None,
+                     "predicted_hiss_heard_reduction_pct": 20.0 * gain + 3.0,
                      "true_peak_dbtp": -6.0 - i, "clipped_samples": 0})
     summary = {"files": n, "counts": {"done": n - 2, "no_filter": 2, "skipped": 0, "failed": 0, "not_run": 0},
                "rendered_audio_seconds": 60.0 * n, "wall_seconds": 12.0}
@@ -212,6 +214,23 @@ def test_batch_picture_of_ten_clips_names_each_with_its_f0():
     assert_line_labels_clear(gain_ax, fig)
     words = all_words(fig)
     assert "ITU-R 468-weighted" in words and not any(b in words.lower() for b in BANNED)
+
+
+def test_batch_picture_judges_in_hiss_heard_when_the_clips_were_planned_by_it():
+    from audition.plots.batch import batch_figure
+
+    result = _batch_result()
+    fig = batch_figure(result, "itu468", budget_db=1.0, measure="heard")
+    ax = fig.axes[0]
+    done = [r for r in result.rows if r["status"] == "done"]
+    measured = next(line for line in ax.lines if line.get_label() == "rendered: measured on the output")
+    predicted = next(line for line in ax.lines if line.get_label() == "rendered: predicted from the survey")
+    np.testing.assert_array_equal(measured.get_ydata(), [r["measured_hiss_heard_reduction_pct"] for r in done])
+    np.testing.assert_array_equal(predicted.get_ydata(), [r["predicted_hiss_heard_reduction_pct"] for r in done])
+    assert ax.get_ylabel() == "hiss heard taken away (%, ISO 532-1)"
+    key = next(t.get_text() for t in fig.texts if "clip" in t.get_text() and " f0" in t.get_text())
+    assert f"-{done[0]['measured_hiss_heard_reduction_pct']:.0f} %" in key
+    assert_no_overlaps(fig)
 
 
 def test_realize_picture_shows_the_flat_loss_of_the_load_as_a_level_offset():

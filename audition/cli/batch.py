@@ -405,9 +405,11 @@ def run(args) -> int:
         from audition.plots.batch import plot_batch
 
         os.makedirs(os.path.dirname(os.path.abspath(args.plot)), exist_ok=True)  # --plot below OUTDIR
+        # judged as the clips were planned: the hiss heard, unless --auto chose by weighted SNR
         plot_batch(result, plot, weighting=getattr(args, "weighting", None) or "itu468",
                    title=f"audition batch: {' '.join(args.sources)} -> {args.outdir}",
-                   budget_db=auto.budget_db if auto is not None else None)
+                   budget_db=auto.budget_db if auto is not None else None,
+                   measure="snr" if auto is not None and auto.objective == "snr" else "heard")
     if args.json:
         with open(paths[1], encoding="utf-8") as fh:
             print(json.dumps(json.load(fh), indent=2))
