@@ -251,6 +251,30 @@ def test_realize_picture_shows_the_flat_loss_of_the_load_as_a_level_offset():
     assert_no_overlaps(fig)
 
 
+def test_every_frequency_axis_reads_20_50_100_to_20k(survey):
+    # What a technician reads on a log-frequency axis: 20, 50, 100 ... 1k ... 10k, 20k, never 10^3
+    # (common practice of audio measurement charts, no source).
+    from audition.plots.plan import plan_figure, response_figure as report_response
+    from audition.plots.realize import coefficients_figure, realisation_figure
+    from audition.plots.response import response_figure
+    from audition.plots.survey import survey_figure
+
+    d = _spec(8000.0, order=4, alignment="butterworth")
+    pl = pipeline.plan_survey(survey, pipeline.NoiseReference(), pipeline.PlanSettings())
+    figures = {"survey": survey_figure(survey, d, "take.wav"), "plan": plan_figure(survey, pl, "take.wav"),
+               "response": response_figure(d), "report response": report_response(d),
+               "realize": realisation_figure(realize.realise(d, "sallen-key"), None),
+               "coefficients": coefficients_figure(realize.quantise(d))}
+    readable = {"20", "50", "100", "200", "500", "1k", "2k", "5k", "10k", "20k"}
+    for name, fig in figures.items():
+        drawn(fig)
+        logs = [ax for ax in fig.axes if ax.get_xscale() == "log"]
+        shown = [[t.get_text() for t in ax.get_xticklabels() if t.get_visible() and t.get_text()] for ax in logs]
+        assert any(shown), name  # axes sharing x with the one below show none of their own
+        for labels in shown:
+            assert set(labels) <= readable, (name, labels)
+
+
 @pytest.mark.parametrize("target", ["series-rlc", "sallen-key"])
 def test_circuit_drawing_names_every_part_with_its_value(tmp_path, target):
     pytest.importorskip("schemdraw")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from audition.plots import pyplot, save_figure
+from audition.plots import audio_ticks, pyplot, save_figure
 
 _UNITS = (("_ohm", "Ω"), ("_henry", "H"), ("_farad", "F"))
 _PREFIXES = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"), (1e-12, "p"))
@@ -131,11 +131,17 @@ def realisation_figure(real, tol=None):
     ax2.grid(True, which="both", alpha=0.3)
     ax2.legend(loc="lower left", fontsize=8.5)
     ax2.set_xlim(f[0], f[-1])
+    for ax in (ax1, ax2):
+        audio_ticks(ax, f[0], f[-1])
     fig.tight_layout()
     return fig
 
 
 def plot_coefficients(coeffs, path) -> None:
+    save_figure(coefficients_figure(coeffs), path)
+
+
+def coefficients_figure(coeffs):
     """Magnitude in every format that fits (top) and |rounded - double| in dB on a log scale (bottom)."""
     plt = pyplot()
     d = coeffs.design
@@ -189,5 +195,7 @@ def plot_coefficients(coeffs, path) -> None:
     ax2.grid(True, which="both", alpha=0.3)
     ax2.legend(loc="lower left", fontsize=8.5, ncol=2)
     ax2.set_xlim(lo, hi)
+    audio_ticks(ax1, f[0], f[-1])
+    audio_ticks(ax2, lo, hi)
     fig.tight_layout()
-    save_figure(fig, path)
+    return fig
