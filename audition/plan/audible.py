@@ -100,7 +100,11 @@ class Bands:
     @property
     def programme_frames(self) -> np.ndarray:
         """Each frame's programme alone: its band power less the hiss's, floored at zero."""
-        return np.maximum(self.frames - self.noise[None, :], 0.0)
+        return self.programme_rows(0, len(self.frames))
+
+    def programme_rows(self, start: int, stop: int) -> np.ndarray:
+        """:attr:`programme_frames` of the frames ``start .. stop - 1`` only (a chunk of a long file)."""
+        return np.maximum(self.frames[start:stop] - self.noise[None, :], 0.0)
 
     def loud_programme(self) -> np.ndarray:
         """The programme's band power in its loud moments (the 90th percentile over frames), (B,)."""
@@ -252,7 +256,7 @@ def _heard_frames(bands: Bands, gain_programme: np.ndarray, gain_noise: np.ndarr
     noise = bands.noise * gain_noise
     parts = []
     for i in range(0, max(len(bands.frames), 1), HEARD_CHUNK):
-        prog = np.maximum(bands.frames[i:i + HEARD_CHUNK] - bands.noise[None, :], 0.0) * gain_programme[None, :]
+        prog = bands.programme_rows(i, i + HEARD_CHUNK) * gain_programme[None, :]
         parts.append(_heard(bands, prog, np.broadcast_to(noise, prog.shape), listening_level_db))
     return _HeardColumns(np.concatenate([r.heard_sone for r in parts]),
                          np.concatenate([r.audible for r in parts], axis=1))
