@@ -24,24 +24,34 @@ def short_names(paths) -> list[str]:
     return [os.path.relpath(p, base) for p in paths]
 
 
-def _gain_key(measure: str, weighting: str) -> str:
-    """The row's column (after "measured_" or "predicted_") of what the filter gained."""
-    return "hiss_heard_reduction_pct" if measure == "heard" else f"snr_gain_db_{weighting}"
+#: How weightings are named on the pictures.
+WEIGHTING_NAMES = {"flat": "unweighted", "a": "A-weighted", "itu468": "ITU-R 468-weighted"}
 
 
-def figure_points(rows, weighting: str, measure: str = "snr") -> list[dict]:
+def _gain(measure: str, weighting: str) -> dict:
+    """What the filter gained, as the picture shows it: the row's column (after "measured_" or
+    "predicted_"), the axis label, the key's heading and cell, and the key's footnote."""
+    if measure == "heard":
+        return {"column": "hiss_heard_reduction_pct", "axis": "hiss heard taken away (%, ISO 532-1)",
+                "heading": "heard", "cell": lambda v: f"-{v:.0f} %",
+                "footnote": "measured: loss in dB, hiss heard taken away in %"}
+    return {"column": f"snr_gain_db_{weighting}",
+            "axis": f"SNR gain, {WEIGHTING_NAMES.get(weighting, weighting)} (dB)",
+            "heading": "gain", "cell": lambda v: f"{v:5.2f}", "footnote": "loss and gain measured, dB"}
+
+
+def figure_points(rows, column: str) -> list[dict]:
     """Per clip with figures: name, status, measured and predicted (treble loss in dB, gain).
 
-    The gain is the hiss heard taken away (%) with ``measure="heard"``, else the SNR gain
-    in dB with ``weighting``. The name is the output's path below the folder all the
-    outputs share (two clips of the same file name in different folders stay apart).
+    The gain is the row's ``measured_COLUMN`` and ``predicted_COLUMN`` (see :func:`_gain`).
+    The name is the output's path below the folder all the outputs share (two clips of the
+    same file name in different folders stay apart).
     """
     kept = [r for r in rows if r["status"] in ("done", "skipped")]
-    key = _gain_key(measure, weighting)
     pts = []
     for r, name in zip(kept, short_names(r["output"] for r in kept)):
-        m = (_num(r.get("measured_treble_loss_db")), _num(r.get(f"measured_{key}")))
-        p = (_num(r.get("predicted_treble_loss_db")), _num(r.get(f"predicted_{key}")))
+        m = (_num(r.get("measured_treble_loss_db")), _num(r.get(f"measured_{column}")))
+        p = (_num(r.get("predicted_treble_loss_db")), _num(r.get(f"predicted_{column}")))
         if None in m:
             continue
         pts.append({"name": name, "status": r["status"], "measured": m, "predicted": None if None in p else p,
@@ -49,8 +59,6 @@ def figure_points(rows, weighting: str, measure: str = "snr") -> list[dict]:
     return pts
 
 
-#: How weightings are named on the pictures.
-WEIGHTING_NAMES = {"flat": "unweighted", "a": "A-weighted", "itu468": "ITU-R 468-weighted"}
 #: Clips numbered on the trade-off panel and listed in its key at most (the report has every row).
 MAX_KEY = 20
 
@@ -59,16 +67,16 @@ def _f0_text(f0_hz) -> str:
     return "no f0" if f0_hz is None else (f"{f0_hz / 1000:.2f} kHz" if f0_hz >= 1000 else f"{f0_hz:.0f} Hz")
 
 
-def key_lines(pts, rows, measure: str = "snr") -> list[str]:
-    """The key beside the trade-off panel: each numbered clip with its f0, loss and gain; then the clips with no filter."""
+def key_lines(pts, rows, gain: dict) -> list[str]:
+    """The key beside the trade-off panel: each numbered clip with its f0, loss and gain (as :func:`_gain`
+    describes it); then the clips with no filter."""
     w = max([len(p["name"]) for p in pts[:MAX_KEY]] + [4])
     w = min(w, 28)
-    gain = "heard" if measure == "heard" else "gain"
-    lines = [f"{'#':>2}  {'clip':<{w}}  {'f0':>9}  {'loss':>5}  {gain:>5}"]
+    lines = [f"{'#':>2}  {'clip':<{w}}  {'f0':>9}  {'loss':>5}  {gain['heading']:>5}"]
     for n, p in enumerate(pts[:MAX_KEY], 1):
         name = p["name"] if len(p["name"]) <= w else "…" + p["name"][-(w - 1):]
-        g = f"-{p['measured'][1]:.0f} %" if measure == "heard" else f"{p['measured'][1]:5.2f}"
-        lines.append(f"{n:>2}  {name:<{w}}  {_f0_text(p['f0_hz']):>9}  {p['measured'][0]:5.2f}  {g:>5}")
+        lines.append(f"{n:>2}  {name:<{w}}  {_f0_text(p['f0_hz']):>9}  {p['measured'][0]:5.2f}  "
+                     f"{gain['cell'](p['measured'][1]):>5}")
     if len(pts) > MAX_KEY:
         lines.append(f"    and {len(pts) - MAX_KEY} more (see the report)")
     nof = [r for r in rows if r["status"] in ("no filter", "no_filter")]
@@ -78,8 +86,7 @@ def key_lines(pts, rows, measure: str = "snr") -> list[str]:
         lines.append("")
         lines.append(f"no filter chosen ({len(nof)}):")
         lines += ["    " + n for n in shown[:8]] + (["    …"] if len(shown) > 8 else [])
-    lines.append("measured: loss in dB, hiss heard taken away in %" if measure == "heard"
-                 else "loss and gain measured, dB")
+    lines.append(gain["footnote"])
     return lines
 
 
@@ -113,8 +120,9 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
 
     rows = result.rows
     kept = [r for r in rows if r["status"] in ("done", "skipped")]  # rendered by this run or an earlier one
-    pts = figure_points(rows, weighting, measure)
-    keys = key_lines(pts, rows, measure) if pts else []
+    gain = _gain(measure, weighting)
+    pts = figure_points(rows, gain["column"])
+    keys = key_lines(pts, rows, gain) if pts else []
     key_w = 0.0 if not keys else min(5.5, 0.075 * max(len(k) for k in keys) + 0.3)
     fig, (ax1, axk, ax2) = plt.subplots(1, 3, figsize=(13 + key_w, 6.2),
                                         width_ratios=(1.6, max(0.01, key_w / 5.0), 1))
@@ -149,8 +157,7 @@ def batch_figure(result, weighting: str = "itu468", title: str = "", budget_db: 
                else "no clip was rendered")
         ax1.text(0.5, 0.5, why, ha="center", va="center", transform=ax1.transAxes, fontsize=9, wrap=True)
     ax1.set_xlabel("treble loss: largest cut where the programme is heard (dB)")
-    ax1.set_ylabel("hiss heard taken away (%, ISO 532-1)" if measure == "heard"
-                   else f"SNR gain, {WEIGHTING_NAMES.get(weighting, weighting)} (dB)")
+    ax1.set_ylabel(gain["axis"])
     ax1.set_title(f"per clip: what the filter gained and cost ({len(pts)} of {len(rows)} clips with figures)",
                   fontsize=10)
     ax1.grid(True, alpha=0.3)
