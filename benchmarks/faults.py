@@ -110,18 +110,22 @@ def check_outputs(folder, inputs):
     return bad, parts
 
 
+#: What CPython prints when a signal stops it while it starts (init_import_site, init_sys_streams...).
+CPYTHON_START_FAILED = b"Fatal Python error: init_"
+
+
 def in_startup(proc, err):
     """Stopped by SIGINT while CPython itself was starting (its site module, before any line of audition ran).
 
     CPython then prints "Fatal Python error: init_import_site" (or init_sys_streams) with its own
     traceback and exits 1; nothing of audition's ran, so nothing was written. Counted apart.
     """
-    return proc.returncode == 1 and b"Fatal Python error: init_" in err
+    return proc.returncode == 1 and CPYTHON_START_FAILED in err
 
 
 def ours(err):
     """Traceback text on stderr that is not CPython's own start-up failure (see in_startup)."""
-    return (b"Traceback" in err or b"Exception ignored" in err) and b"Fatal Python error: init_" not in err
+    return (b"Traceback" in err or b"Exception ignored" in err) and CPYTHON_START_FAILED not in err
 
 
 def wait_gone(text, deadline=60.0):

@@ -238,10 +238,10 @@ def test_a_signal_during_the_commands_own_imports_is_kept_and_ends_it_without_a_
         "sys.orig_argv = [sys.executable, '-m', 'audition']; sys.argv = ['-m']\n"
         "import audition\n"
         "os.kill(os.getpid(), signal.SIGINT)\n"
-        "sys.argv = ['audition', 'survey', sys.argv_clip]\n"
+        f"sys.argv = ['audition', 'survey', {str(clip)!r}]\n"
         "from audition.cli import main\n"
         "sys.exit(main())\n"
-    ).replace("sys.argv_clip", repr(str(clip)))
+    )
     proc = subprocess.run([sys.executable, "-c", child], capture_output=True, timeout=120)
     assert proc.returncode == 130, proc.stderr  # 128 + SIGINT: common practice of POSIX shells, no source
     assert proc.stderr.decode().strip() == "audition: interrupted by SIGINT"
