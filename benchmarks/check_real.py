@@ -74,9 +74,9 @@ def check(mix: dict, budget: float) -> dict:
         return row
     choice = out["choice"]
     if choice is None:
-        row.update(answer="no filter", reason=out.get("no_filter_reason"), rules={"none": True})
-        if mix["f_c_hz"] is not None:
-            row["rules"] = {}  # the truth has a sink frequency: "no filter" is judged by the figures, not a rule
+        # where the truth has a sink frequency, "no filter" has no -3 dB point to judge: no rule applies
+        row.update(answer="no filter", reason=out.get("no_filter_reason"),
+                   rules={"none": True} if mix["f_c_hz"] is None else {})
         return row
     clean, rate = sf.read(paths["clean"], always_2d=True)
     hiss, _ = sf.read(paths["hiss"], always_2d=True)
